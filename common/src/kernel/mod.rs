@@ -1,0 +1,1 @@
+//! The search kernel (METHOD.md). Work in progress: see the kernel issue.

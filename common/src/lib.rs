@@ -1,0 +1,28 @@
+//! cubehunt-common: everything the coordinator and the worker must agree on, and nothing else.
+//!
+//! * [`kernel`] — the search for `x³ + y³ + z³ = k` over one rectangle of one region
+//!   (METHOD.md), the work [`digest`] it produces, exact verification of solutions.
+//! * [`unit`] — regions, rectangles, units and their canonical (signed) encoding.
+//! * [`report`] — what a worker returns for a lease, and its canonical encoding.
+//! * [`sign`] — Ed25519 keys, signatures over canonical bytes, signed HTTP requests.
+//! * [`protocol`] — the JSON bodies exchanged between worker and coordinator.
+//!
+//! Deliberately absent: HTTP, SQL, files, clocks. The kernel knows nothing of campaigns;
+//! the protocol knows nothing of how a unit is sieved.
+
+pub mod digest;
+pub mod kernel;
+pub mod protocol;
+pub mod report;
+pub mod sign;
+pub mod solution;
+pub mod unit;
+
+pub use digest::Digest;
+pub use solution::Solution;
+pub use unit::{Rect, Region, UnitSpec};
+
+/// Version of the search kernel. It names the sieve moduli, the survivor hash and the
+/// candidate-counting rules: any change to those changes digests, so it must change this.
+/// A campaign pins the kernel version its units were made for.
+pub const KERNEL_VERSION: &str = "cubehunt-kernel/1";
