@@ -12,6 +12,7 @@
 
 pub mod digest;
 pub mod kernel;
+pub mod numarg;
 pub mod protocol;
 pub mod report;
 pub mod sign;

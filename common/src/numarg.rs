@@ -1,0 +1,87 @@
+//! Parsing of numbers given on command lines and in admin requests: plain integers
+//! (`1000000`, `1_000_000`) and exact scientific notation (`1e9`, `2.5e6`).
+
+/// Parse a non-negative integer, accepting `1e9`-style input when the value is an exact integer.
+pub fn parse_u64(s: &str) -> Result<u64, String> {
+    let t = s.trim().replace('_', "");
+    let bad = || format!("{s:?} is not a non-negative integer (examples: 1000000, 1e6, 2.5e6)");
+    if t.is_empty() || t.len() > 40 {
+        return Err(bad());
+    }
+    if t.bytes().all(|b| b.is_ascii_digit()) {
+        return t.parse::<u64>().map_err(|_| format!("{s:?} exceeds the largest supported value {}", u64::MAX));
+    }
+    let (mant, exp) = t.split_once(['e', 'E']).ok_or_else(bad)?;
+    let exp: u32 = exp.strip_prefix('+').unwrap_or(exp).parse().map_err(|_| bad())?;
+    let (int, frac) = mant.split_once('.').unwrap_or((mant, ""));
+    if int.is_empty() && frac.is_empty()
+        || !int.bytes().all(|b| b.is_ascii_digit())
+        || !frac.bytes().all(|b| b.is_ascii_digit())
+    {
+        return Err(bad());
+    }
+    let frac = frac.trim_end_matches('0');
+    if frac.len() as u32 > exp {
+        return Err(format!("{s:?} is not an integer"));
+    }
+    let digits = format!("{int}{frac}{}", "0".repeat((exp - frac.len() as u32) as usize));
+    let digits = digits.trim_start_matches('0');
+    if digits.is_empty() {
+        return Ok(0);
+    }
+    digits.parse::<u64>().map_err(|_| format!("{s:?} exceeds the largest supported value {}", u64::MAX))
+}
+
+/// Parse a signed integer (`-42`, `1e3`, `-1e3`).
+pub fn parse_i64(s: &str) -> Result<i64, String> {
+    let t = s.trim();
+    let (neg, body) = match t.strip_prefix('-') {
+        Some(b) => (true, b),
+        None => (false, t),
+    };
+    let v = parse_u64(body).map_err(|e| e.replace("non-negative ", ""))?;
+    if neg {
+        if v > i64::MAX as u64 + 1 {
+            return Err(format!("{s:?} is below the smallest supported value {}", i64::MIN));
+        }
+        Ok((v as i128).wrapping_neg() as i64)
+    } else {
+        i64::try_from(v).map_err(|_| format!("{s:?} exceeds the largest supported value {}", i64::MAX))
+    }
+}
+
+/// Parse a comma-separated list of signed integers (`114,390,627`), refusing repeats.
+pub fn parse_i64_list(s: &str) -> Result<Vec<i64>, String> {
+    let mut out = Vec::new();
+    for part in s.split(',') {
+        let v = parse_i64(part)?;
+        if out.contains(&v) {
+            return Err(format!("{v} appears twice in {s:?}"));
+        }
+        out.push(v);
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    #[test]
+    fn accepts_plain_and_scientific() {
+        assert_eq!(parse_u64("1e9").unwrap(), 1_000_000_000);
+        assert_eq!(parse_u64("2.5e6").unwrap(), 2_500_000);
+        assert_eq!(parse_u64("1_000").unwrap(), 1000);
+        assert_eq!(parse_u64("18446744073709551615").unwrap(), u64::MAX);
+        assert_eq!(parse_i64("-1e3").unwrap(), -1000);
+        assert_eq!(parse_i64("-9223372036854775808").unwrap(), i64::MIN);
+        assert_eq!(parse_i64_list("114, 390,627").unwrap(), vec![114, 390, 627]);
+    }
+    #[test]
+    fn refuses_junk() {
+        for bad in ["", "abc", "1.5", "1e", "e5", "1e99", "-3", "18446744073709551616", "1.25e1", "0x10"] {
+            assert!(parse_u64(bad).is_err(), "{bad}");
+        }
+        assert!(parse_i64("9223372036854775808").is_err());
+        assert!(parse_i64_list("1,2,1").is_err());
+    }
+}
