@@ -14,11 +14,12 @@
 
 use crate::{Digest, Rect, Region, Solution};
 
-mod equal;
+pub mod equal;
 mod exact;
 mod factor;
 mod main_stub;
-mod small;
+pub mod naive_se;
+pub mod small;
 
 pub use equal::{cbrt2_convergents, z1};
 pub use factor::{factor, is_prime};
