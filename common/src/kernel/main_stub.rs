@@ -53,7 +53,9 @@ pub fn candidates_main(k: i64, rect: &Rect) -> u64 {
         }
         for a in r {
             for z in [a as i128, -(a as i128)] {
-                if (z.pow(3) - k as i128).rem_euclid(d as i128) == 0 {
+                let r = z.rem_euclid(d as i128) as u128;
+                let cu = (r * r % d as u128) * r % d as u128;
+                if (cu as i128 - k as i128).rem_euclid(d as i128) == 0 {
                     c += 1;
                 }
             }
