@@ -55,13 +55,20 @@ fn every_box_solution_is_found_and_nothing_found_in_the_box_is_missing() {
     let mut searched = 0;
     for k in 1..=KMAX as i64 {
         if kernel::check_target_allowing_cube(k).is_err() {
-            assert!(!boxed.contains_key(&k), "brute force found a solution for refused k = {k}");
+            assert!(
+                !boxed.contains_key(&k),
+                "brute force found a solution for refused k = {k}"
+            );
             continue;
         }
         searched += 1;
         let out = kernel::solve(k, N as u64, 0, &|_| {}).unwrap();
-        let found_in_box: BTreeSet<Solution> =
-            out.solutions.iter().copied().filter(|s| s.0.iter().all(|v| v.abs() <= N)).collect();
+        let found_in_box: BTreeSet<Solution> = out
+            .solutions
+            .iter()
+            .copied()
+            .filter(|s| s.0.iter().all(|v| v.abs() <= N))
+            .collect();
         let want = boxed.get(&k).cloned().unwrap_or_default();
         assert_eq!(found_in_box, want, "k = {k}");
         for s in &out.solutions {
@@ -70,5 +77,7 @@ fn every_box_solution_is_found_and_nothing_found_in_the_box_is_missing() {
     }
     assert_eq!(searched, 78);
     // The box is not empty: e.g. k = 3 has (1,1,1) and (4,4,−5) (common practice, no source).
-    assert!(boxed[&3].contains(&Solution::new(4, 4, -5)) && boxed[&3].contains(&Solution::new(1, 1, 1)));
+    assert!(
+        boxed[&3].contains(&Solution::new(4, 4, -5)) && boxed[&3].contains(&Solution::new(1, 1, 1))
+    );
 }

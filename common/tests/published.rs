@@ -65,7 +65,11 @@ fn smallest_solutions_of_small_k_by_full_runs() {
         assert!(s.verify(k), "k={k}");
         let bound = s.min_abs() as u64 + 1;
         let out = kernel::solve(k, bound, 0, &|_| {}).unwrap();
-        assert!(out.solutions.contains(&s), "k={k}: {s} not found up to {bound}: {:?}", out.solutions);
+        assert!(
+            out.solutions.contains(&s),
+            "k={k}: {s} not found up to {bound}: {:?}",
+            out.solutions
+        );
     }
 }
 
@@ -74,12 +78,21 @@ fn smallest_solutions_of_small_k_by_full_runs() {
 /// `w`, and the kernel is not told the solution.
 fn narrow_scan(k: i64, v: [i128; 3], c: u64, w: u64) {
     let s = sol(v);
-    assert!(s.verify(k), "recalled triple for k={k} fails exact verification");
+    assert!(
+        s.verify(k),
+        "recalled triple for k={k} fails exact verification"
+    );
     let mut by_abs = v;
     by_abs.sort_by_key(|a| std::cmp::Reverse(a.unsigned_abs()));
     let d = (by_abs[0] + by_abs[1]).unsigned_abs() as u64;
     let z = by_abs[2].unsigned_abs() as u64;
-    let rect = Rect { region: Region::Main, d_lo: d - c, d_hi: d + c, z_lo: z - w, z_hi: z + w };
+    let rect = Rect {
+        region: Region::Main,
+        d_lo: d - c,
+        d_hi: d + c,
+        z_lo: z - w,
+        z_hi: z + w,
+    };
     let out = kernel::scan(k, &rect, 2, &|_| {}).unwrap();
     assert_eq!(out.solutions, vec![s], "k={k} in {rect}");
     assert_eq!(out.digest.candidates, kernel::candidates(k, &rect));
@@ -89,8 +102,18 @@ fn narrow_scan(k: i64, v: [i128; 3], c: u64, w: u64) {
 fn booker_2019_blind_narrow_scans() {
     // A. R. Booker, "Cracking the problem with 33", Research in Number Theory 5 (2019), art. 26
     // (k = 33; k = 795 from the same paper) — values from memory, confirmed exactly.
-    narrow_scan(33, [8866128975287528, -8778405442862239, -2736111468807040], 20, 1000);
-    narrow_scan(795, [-14219049725358227, 14197965759741571, 2337348783323923], 20, 1000);
+    narrow_scan(
+        33,
+        [8866128975287528, -8778405442862239, -2736111468807040],
+        20,
+        1000,
+    );
+    narrow_scan(
+        795,
+        [-14219049725358227, 14197965759741571, 2337348783323923],
+        20,
+        1000,
+    );
 }
 
 #[test]
@@ -98,11 +121,44 @@ fn booker_sutherland_2021_blind_narrow_scans() {
     // A. R. Booker and A. V. Sutherland, "On a question of Mordell", PNAS 118 (2021), no. 11
     // (k = 3 and 42), and the further solutions of that search for 165, 579, 906 — from memory,
     // confirmed exactly. For k = 579, |z| ≈ 6.9·10¹⁸ is near the top of the supported range.
-    narrow_scan(42, [-80538738812075974, 80435758145817515, 12602123297335631], 20, 1000);
-    narrow_scan(3, [569936821221962380720, -569936821113563493509, -472715493453327032], 20, 1000);
-    narrow_scan(165, [-385495523231271884, 383344975542639445, 98422560467622814], 20, 1000);
-    narrow_scan(579, [143075750505019222645, -143070303858622169975, -6941531883806363291], 20, 1000);
-    narrow_scan(906, [-74924259395610397, 72054089679353378, 35961979615356503], 20, 1000);
+    narrow_scan(
+        42,
+        [-80538738812075974, 80435758145817515, 12602123297335631],
+        20,
+        1000,
+    );
+    narrow_scan(
+        3,
+        [
+            569936821221962380720,
+            -569936821113563493509,
+            -472715493453327032,
+        ],
+        20,
+        1000,
+    );
+    narrow_scan(
+        165,
+        [-385495523231271884, 383344975542639445, 98422560467622814],
+        20,
+        1000,
+    );
+    narrow_scan(
+        579,
+        [
+            143075750505019222645,
+            -143070303858622169975,
+            -6941531883806363291,
+        ],
+        20,
+        1000,
+    );
+    narrow_scan(
+        906,
+        [-74924259395610397, 72054089679353378, 35961979615356503],
+        20,
+        1000,
+    );
 }
 
 #[test]

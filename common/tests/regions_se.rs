@@ -21,11 +21,17 @@ fn sorted(mut v: Vec<Solution>) -> Vec<Solution> {
 #[test]
 fn small_region_matches_trial_division_digest_and_solutions() {
     // Reference: trial division of k − z³ by every a ≤ ∛(4|n|) (naive_se), no source needed.
-    let ks: Vec<i64> = (1..=400).chain([1_000_003, 123_456_789, 987_654_321_000]).filter(|&k| admissible(k)).collect();
+    let ks: Vec<i64> = (1..=400)
+        .chain([1_000_003, 123_456_789, 987_654_321_000])
+        .filter(|&k| admissible(k))
+        .collect();
     for k in ks {
         let rect = kernel::domain(k, u64::MAX >> 1, Region::Small).unwrap();
         // Keep the naive side affordable for the large k: the first 40 |z| only.
-        let rect = Rect { z_hi: rect.z_hi.min(40), ..rect };
+        let rect = Rect {
+            z_hi: rect.z_hi.min(40),
+            ..rect
+        };
         let fast = kernel::scan(k, &rect, 1, &|_| {}).unwrap();
         let (dg, sols) = naive_se::scan_small_naive(k, &rect);
         assert_eq!(fast.digest, dg, "k={k}");
@@ -40,11 +46,21 @@ fn equal_region_matches_brute_force_far_above_z1() {
     // visits only multiples of convergent denominators of ∛2 (Legendre's theorem).
     for k in (1..=150).chain([1001, 2005]).filter(|&k| admissible(k)) {
         let z0 = kernel::z0(k);
-        let rect = Rect { region: Region::Equal, d_lo: 0, d_hi: 0, z_lo: z0, z_hi: 60_000 };
+        let rect = Rect {
+            region: Region::Equal,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo: z0,
+            z_hi: 60_000,
+        };
         let fast = kernel::scan(k, &rect, 1, &|_| {}).unwrap();
         let naive = sorted(naive_se::scan_equal_naive(k, &rect));
         assert_eq!(fast.solutions, naive, "k={k}");
-        assert_eq!(kernel::candidates(k, &rect), fast.digest.candidates, "k={k}");
+        assert_eq!(
+            kernel::candidates(k, &rect),
+            fast.digest.candidates,
+            "k={k}"
+        );
     }
 }
 

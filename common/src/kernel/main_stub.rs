@@ -78,7 +78,11 @@ pub fn scan_main(
         if r.is_empty() {
             continue;
         }
-        dg.d_values += 1;
+        let l = z0.max(main_z_floor(d));
+        if rect.z_lo <= l && l < rect.z_hi {
+            dg.d_values += 1;
+        }
+        let c0 = dg.candidates;
         let dd = Integer::from(d);
         for a in r {
             for s in [1i64, -1] {
@@ -113,7 +117,7 @@ pub fn scan_main(
                 ));
             }
         }
-        progress(0);
+        progress(dg.candidates - c0);
     }
     (dg, sols)
 }

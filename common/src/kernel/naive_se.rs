@@ -7,7 +7,7 @@
 //! * equal: every `z` in the rectangle gets the cube test, also above `Z1`, so it checks the
 //!   Legendre argument; only the solutions are comparable (it visits more `z`).
 
-use super::exact::{exact_sqrt_u128, icbrt_u128, icbrt_trunc_i128};
+use super::exact::{exact_sqrt_u128, icbrt_trunc_i128, icbrt_u128};
 use super::survivor_hash;
 use crate::{Digest, Rect, Solution};
 
@@ -15,7 +15,10 @@ use crate::{Digest, Rect, Solution};
 pub fn scan_small_naive(k: i64, rect: &Rect) -> (Digest, Vec<Solution>) {
     let mut dg = Digest::ZERO;
     let mut sols = Vec::new();
-    let zs = (rect.z_lo == 0).then_some(0i64).into_iter().chain((rect.z_lo + 1..=rect.z_hi).flat_map(|a| [a as i64, -(a as i64)]));
+    let zs = (rect.z_lo == 0)
+        .then_some(0i64)
+        .into_iter()
+        .chain((rect.z_lo + 1..=rect.z_hi).flat_map(|a| [a as i64, -(a as i64)]));
     for z in zs {
         dg.d_values += 1;
         dg.candidates += 1;
@@ -37,7 +40,11 @@ pub fn scan_small_naive(k: i64, rect: &Rect) -> (Digest, Vec<Solution>) {
             if let Some(r) = exact_sqrt_u128(q / 3) {
                 if (r + a) % 2 == 0 {
                     let e = if n < 0 { -(a as i128) } else { a as i128 };
-                    sols.push(Solution::new((e + r as i128) / 2, (e - r as i128) / 2, z as i128));
+                    sols.push(Solution::new(
+                        (e + r as i128) / 2,
+                        (e - r as i128) / 2,
+                        z as i128,
+                    ));
                 }
             }
         }
