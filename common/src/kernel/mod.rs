@@ -14,6 +14,13 @@
 
 use crate::{Digest, Rect, Region, Solution};
 
+pub mod arith;
+pub mod main_region;
+#[doc(hidden)]
+pub mod naive;
+pub mod sieve;
+pub mod survivor;
+
 /// Largest `|z|` supported: `2⁶³ − 1`.
 pub const MAX_Z: u64 = i64::MAX as u64;
 /// Largest `|k|` supported.
@@ -91,7 +98,12 @@ pub type Progress<'a> = &'a (dyn Fn(u64) + Sync);
 
 /// Search one rectangle on `threads` threads (0 = all cores). The digest does not depend on
 /// `threads`. Every solution is verified in big integers before it is returned.
-pub fn scan(k: i64, rect: &Rect, threads: usize, progress: Progress) -> Result<ScanOutput, KernelError> {
+pub fn scan(
+    k: i64,
+    rect: &Rect,
+    threads: usize,
+    progress: Progress,
+) -> Result<ScanOutput, KernelError> {
     let _ = (k, rect, threads, progress);
     unimplemented!("kernel: scan")
 }
