@@ -14,17 +14,21 @@
 
 use crate::{Digest, Rect, Region, Solution};
 
+pub mod arith;
 pub mod equal;
 mod exact;
 mod factor;
-mod main_stub;
+pub mod main_region;
+#[doc(hidden)]
+pub mod naive;
 pub mod naive_se;
+pub mod sieve;
 pub mod small;
+pub mod survivor;
 
 pub use equal::{cbrt2_convergents, z1};
 pub use factor::{factor, is_prime};
 pub use main_region::survivor_hash;
-use main_stub as main_region;
 
 /// Largest `|z|` supported: `2⁶³ − 1`.
 pub const MAX_Z: u64 = i64::MAX as u64;
@@ -113,14 +117,6 @@ pub fn main_z_floor(d: u64) -> u64 {
     main_region::main_z_floor(d)
 }
 
-/// The least `d` with `d > α·bound`: `⌊∛2·bound⌋ − bound + 1`, exactly.
-fn main_d_end(bound: u64) -> u64 {
-    use rug::ops::Pow;
-    let b = rug::Integer::from(bound);
-    let r = (rug::Integer::from(2) * b.clone().pow(3)).root(3); // ⌊∛2·B⌋ (∛2·B is irrational)
-    (r - b + 1u32).to_u64().expect("d < 2^63")
-}
-
 /// The whole of one region of target `k` up to `bound`, as one rectangle:
 /// small `(0, Z0∧B]` (with `z = 0`), equal `(Z0, B]`, main `[1, D) × (Z0, B]` with `D` the least
 /// `d` such that `d > αB`. Returns `None` when the region is empty (e.g. `B ≤ Z0` for equal/main).
@@ -143,7 +139,7 @@ pub fn domain(k: i64, bound: u64, region: Region) -> Option<Rect> {
             z_hi: bound,
         }),
         Region::Main => {
-            let d_hi = main_d_end(bound);
+            let d_hi = main_region::main_d_end(bound); // least d with d > α·bound
             (bound > z0 && d_hi > 1).then_some(Rect {
                 region,
                 d_lo: 1,
@@ -257,7 +253,10 @@ pub fn scan(
     let run = || match rect.region {
         Region::Small => small::scan_small(ak, rect, progress),
         Region::Equal => equal::scan_equal(ak, rect, progress),
-        Region::Main => main_region::scan_main(ak, rect, threads, progress),
+        Region::Main => {
+            let o = main_region::scan_main(ak, rect, threads, progress);
+            (o.digest, o.solutions)
+        }
     };
     let (digest, found) = if threads == 0 || rect.region == Region::Main {
         run()
