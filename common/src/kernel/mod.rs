@@ -15,9 +15,9 @@
 use crate::{Digest, Rect, Region, Solution};
 
 pub mod arith;
+mod divisors;
 pub mod equal;
 mod exact;
-mod factor;
 pub mod main_region;
 #[doc(hidden)]
 pub mod naive;
@@ -27,7 +27,6 @@ pub mod small;
 pub mod survivor;
 
 pub use equal::{cbrt2_convergents, z1};
-pub use factor::{factor, is_prime};
 pub use main_region::survivor_hash;
 
 /// Largest `|z|` supported: `2⁶³ − 1`.

@@ -21,9 +21,10 @@
 //! * `hash` — Σ `survivor_hash(k, a, z)` over those divisors, mod 2⁶⁴. The divisors are
 //!   known only after factoring `k − z³`, so the hash cannot be produced without the work.
 
+use super::arith::factor_u64 as factor;
+use super::divisors::divisors_up_to;
 use super::exact::exact_sqrt_u128;
 use super::exact::icbrt_u128;
-use super::factor::{divisors_up_to, factor};
 use super::{survivor_hash, Progress};
 use crate::{Digest, Rect, Solution};
 use rayon::prelude::*;
