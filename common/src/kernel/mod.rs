@@ -9,6 +9,17 @@
 //! * [`candidates`] — the candidate count of a rectangle, without doing the work.
 //! * [`estimate_seconds`] — the cost model: seconds on one reference core.
 //!
+//! Additions: [`check_target_allowing_cube`] and [`check_rect_allowing_cube`] (a cube `k` is
+//! searched for its non-trivial solutions only), [`check_bound`], [`cube_root`], [`domains`]
+//! (the non-empty regions up to a bound), [`solve`] (all regions up to a bound, as `solo`
+//! does) and [`estimate_candidates`] (a cheap approximation of [`candidates`] for progress).
+//!
+//! Code map: [`small`] (S, by factoring), [`equal`] (E, brute force then convergents of ∛2),
+//! [`main_region`] with [`sieve`], [`survivor`] and [`arith`] (C, Booker's method), and the
+//! naive paths used by the tests, [`naive_se`] (S and E) and `naive` (C). Each region module
+//! documents the digest fields it produces. `scan` checks the rectangle, turns a negative
+//! `k` into a positive one, dispatches, and verifies every solution in GMP.
+//!
 //! What this module does not do: choose rectangles (the coordinator plans), talk to anyone,
 //! or touch the file system.
 
