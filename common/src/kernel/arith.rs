@@ -27,10 +27,114 @@ pub fn powmod(mut a: u64, mut e: u64, m: u64) -> u64 {
     r
 }
 
+/// Montgomery arithmetic modulo an odd `n < 2⁶³` (R = 2⁶⁴): products without division.
+#[derive(Clone, Copy, Debug)]
+pub struct Mont {
+    pub n: u64,
+    /// `−n⁻¹ mod 2⁶⁴`
+    ninv: u64,
+    /// `R² mod n`
+    r2: u64,
+}
+
+/// `n⁻¹ mod 2⁶⁴` for odd `n` (Newton's iteration, each step doubles the correct bits).
+#[inline]
+pub fn inv_pow2_64(n: u64) -> u64 {
+    debug_assert!(n & 1 == 1);
+    let mut x = n; // correct to 3 bits: n·n ≡ 1 (mod 8)
+    for _ in 0..5 {
+        x = x.wrapping_mul(2u64.wrapping_sub(n.wrapping_mul(x)));
+    }
+    x
+}
+
+/// `n⁻¹ mod 2¹²⁸` for odd `n`.
+#[inline]
+pub fn inv_pow2_128(n: u64) -> u128 {
+    let x = inv_pow2_64(n) as u128;
+    x.wrapping_mul(2u128.wrapping_sub((n as u128).wrapping_mul(x)))
+}
+
+impl Mont {
+    pub fn new(n: u64) -> Mont {
+        debug_assert!(n & 1 == 1 && n < 1 << 63);
+        let r = ((1u128 << 64) % n as u128) as u64;
+        let r2 = mulmod(r, r, n);
+        Mont {
+            n,
+            ninv: inv_pow2_64(n).wrapping_neg(),
+            r2,
+        }
+    }
+    #[inline]
+    fn redc(&self, t: u128) -> u64 {
+        let m = (t as u64).wrapping_mul(self.ninv);
+        let r = ((t + m as u128 * self.n as u128) >> 64) as u64;
+        if r >= self.n {
+            r - self.n
+        } else {
+            r
+        }
+    }
+    #[inline]
+    pub fn to(&self, a: u64) -> u64 {
+        self.redc((a % self.n) as u128 * self.r2 as u128)
+    }
+    #[inline]
+    pub fn from(&self, a: u64) -> u64 {
+        self.redc(a as u128)
+    }
+    #[inline]
+    pub fn mul(&self, a: u64, b: u64) -> u64 {
+        self.redc(a as u128 * b as u128)
+    }
+    /// `a^e` with `a` and the result in Montgomery form.
+    pub fn pow(&self, a: u64, mut e: u64) -> u64 {
+        let mut r = self.to(1);
+        let mut b = a;
+        while e > 0 {
+            if e & 1 == 1 {
+                r = self.mul(r, b);
+            }
+            b = self.mul(b, b);
+            e >>= 1;
+        }
+        r
+    }
+}
+
+/// `a^e mod n` for odd `n < 2⁶³` through [`Mont`]; other `n` by [`powmod`].
+pub fn powmod_fast(a: u64, e: u64, n: u64) -> u64 {
+    if n & 1 == 1 && n < 1 << 63 && n > 1 {
+        let m = Mont::new(n);
+        m.from(m.pow(m.to(a), e))
+    } else {
+        powmod(a, e, n)
+    }
+}
+
 /// Inverse of `a` modulo `m` (`m ≥ 1`), if `gcd(a, m) = 1`.
 pub fn inv_mod(a: u64, m: u64) -> Option<u64> {
     if m == 1 {
         return Some(0);
+    }
+    if m < 1 << 63 {
+        // Euclid in i64: the Bézout coefficients stay below m in absolute value.
+        let (mut r0, mut r1) = (m as i64, (a % m) as i64);
+        let (mut s0, mut s1) = (0i64, 1i64);
+        while r1 != 0 {
+            let q = r0 / r1;
+            (r0, r1) = (r1, r0 - q * r1);
+            (s0, s1) = (s1, s0 - q * s1);
+        }
+        if r0 != 1 {
+            return None;
+        }
+        return Some(if s0 < 0 {
+            (s0 + m as i64) as u64
+        } else {
+            s0 as u64
+        });
     }
     let (mut r0, mut r1) = (m as i128, (a % m) as i128);
     let (mut s0, mut s1) = (0i128, 1i128);
@@ -252,11 +356,56 @@ pub fn cbrt_mod_prime(a: u64, p: u64) -> ([u64; 3], usize) {
     if p == 2 || p == 3 {
         return ([a, 0, 0], 1);
     }
+    if p >= 1 << 63 {
+        return cbrt_mod_prime_slow(a, p);
+    }
+    let mt = Mont::new(p);
+    let am = mt.to(a);
     if p % 3 == 2 {
         // 3·(2p−1)/3 = 2p − 1 ≡ 1 (mod p − 1)
-        return ([powmod(a, (2 * p - 1) / 3, p), 0, 0], 1);
+        return ([mt.from(mt.pow(am, (2 * p - 1) / 3)), 0, 0], 1);
     }
     // p ≡ 1 (mod 3): a is a cube iff a^((p−1)/3) = 1.
+    let one = mt.to(1);
+    if mt.pow(am, (p - 1) / 3) != one {
+        return ([0; 3], 0);
+    }
+    let mut t = p - 1;
+    let mut s = 0u32;
+    while t % 3 == 0 {
+        t /= 3;
+        s += 1;
+    }
+    if s == 1 {
+        // x = a^e with 3e ≡ 1 (mod t) is a root; ω = g^((p−1)/3) for a non-cube g
+        let e = if t % 3 == 1 {
+            (2 * t + 1) / 3
+        } else {
+            (t + 1) / 3
+        };
+        let x = mt.pow(am, e);
+        let mut g = 2u64;
+        let omega = loop {
+            let w = mt.pow(mt.to(g), t);
+            if w != one {
+                break w;
+            }
+            g += 1;
+        };
+        let x2 = mt.mul(x, omega);
+        let x3 = mt.mul(x2, omega);
+        let mut r = [mt.from(x), mt.from(x2), mt.from(x3)];
+        r.sort_unstable();
+        return (r, 3);
+    }
+    cbrt_mod_prime_slow(a, p)
+}
+
+/// [`cbrt_mod_prime`] in plain `u128` arithmetic, any `p`, any 3-adic valuation of `p − 1`.
+fn cbrt_mod_prime_slow(a: u64, p: u64) -> ([u64; 3], usize) {
+    if p % 3 == 2 {
+        return ([powmod(a, (2 * p - 1) / 3, p), 0, 0], 1);
+    }
     if powmod(a, (p - 1) / 3, p) != 1 {
         return ([0; 3], 0);
     }

@@ -123,50 +123,78 @@ pub(crate) struct Acc {
 /// Classes shorter than this are tested one `t` at a time.
 pub const SIEVE_MIN_LEN: u64 = 256;
 
-/// Coefficients of `g(t)` modulo `M`: `[g(0), 12u₀², 12d·u₀, 4d²] mod M`.
+/// Coefficients of `g(t)` modulo `M`: `[g(0), 12u₀², 12d·u₀, 4d²] mod M` (`M < 2³²`).
 #[derive(Clone, Copy)]
-struct Poly {
+struct Poly<const M: u64> {
     c: [u64; 4],
-    m: u64,
 }
 
-impl Poly {
-    #[inline]
-    fn new(g0_mod: u64, u0: u64, d: u64, m: u64) -> Poly {
-        let um = u0 % m;
-        let dm = d % m;
+impl<const M: u64> Poly<M> {
+    #[inline(always)]
+    fn new(g0_mod: u64, u0: u64, d: u64) -> Self {
+        let um = u0 % M;
+        let dm = d % M;
         Poly {
             c: [
                 g0_mod,
-                12 * um % m * um % m,
-                12 * dm % m * um % m,
-                4 * dm % m * dm % m,
+                12 * um % M * um % M,
+                12 * dm % M * um % M,
+                4 * dm % M * dm % M,
             ],
-            m,
         }
     }
-    #[inline]
+    #[inline(always)]
     fn eval(&self, t: u64) -> u64 {
-        let m = self.m;
-        let t = t % m;
+        let t = t % M;
         let [c0, c1, c2, c3] = self.c;
-        (((c3 * t + c2) % m * t + c1) % m * t + c0) % m
+        (((c3 * t + c2) % M * t + c1) % M * t + c0) % M
+    }
+}
+
+/// `x mod M` for `u128` x with a constant `M < 2³²` (no 128-bit division).
+#[inline(always)]
+fn mod_u128<const M: u64>(x: u128) -> u64 {
+    let r64 = ((1u128 << 64) % M as u128) as u64;
+    let (hi, lo) = ((x >> 64) as u64, x as u64);
+    ((hi % M) * r64 % M + lo % M) % M
+}
+
+/// Per-`d` constants for exact division by `d` in words: `d = 2^v·d'`, `d'⁻¹ mod 2¹²⁸`.
+#[derive(Clone, Copy)]
+struct DivD {
+    v: u32,
+    inv: u128,
+}
+
+impl DivD {
+    #[inline]
+    fn new(d: u64) -> DivD {
+        let v = d.trailing_zeros();
+        DivD {
+            v,
+            inv: super::arith::inv_pow2_128(d >> v),
+        }
+    }
+    /// `n / d` for `n` a multiple of `d` (exact division by the inverse of the odd part).
+    #[inline(always)]
+    fn exact(&self, n: u128) -> u128 {
+        (n >> self.v).wrapping_mul(self.inv)
     }
 }
 
 /// `g(0)` modulo `M1, M2, M3` for the class starting at `u₀` with sign `s`.
-fn g0_residues(ctx: &Ctx, d: u64, s: i64, u0: u64) -> [u64; 3] {
+#[inline]
+fn g0_residues(ctx: &Ctx, d: u64, dd: &DivD, s: i64, u0: u64) -> [u64; 3] {
     if ctx.words {
-        let u = u0 as i128;
-        let n =
-            4 * (u * u * u - s as i128 * ctx.k as i128) - (d as i128) * (d as i128) * (d as i128);
-        let g = n / d as i128;
-        debug_assert_eq!(g * d as i128, n);
-        [
-            g.rem_euclid(M1 as i128) as u64,
-            g.rem_euclid(M2 as i128) as u64,
-            g.rem_euclid(M3 as i128) as u64,
-        ]
+        let u = u0 as u128;
+        let d3 = (d as u128) * (d as u128) * (d as u128);
+        // N = 4(u³ − s·k) − d³ > 0 in the region (u > √k, d < 0.26u)
+        let n = (4 * u * u * u)
+            .wrapping_sub((4 * s as i128 * ctx.k as i128) as u128)
+            .wrapping_sub(d3);
+        let g = dd.exact(n);
+        debug_assert_eq!(g.wrapping_mul(d as u128), n);
+        [mod_u128::<M1>(g), mod_u128::<M2>(g), mod_u128::<M3>(g)]
     } else {
         let g = g_big(ctx.k, d, s, u0);
         [
@@ -245,11 +273,11 @@ pub fn exact_test(k: i64, d: u64, z: i64, words: bool) -> Option<Solution> {
 }
 
 /// One class `u = u₀ + d·t`, `t ∈ [0, n)`.
-fn scan_class(ctx: &Ctx, acc: &mut Acc, d: u64, s: i64, u0: u64, n: u64) {
-    let g0 = g0_residues(ctx, d, s, u0);
-    let p1 = Poly::new(g0[0], u0, d, M1);
-    let p2 = Poly::new(g0[1], u0, d, M2);
-    let p3 = Poly::new(g0[2], u0, d, M3);
+fn scan_class(ctx: &Ctx, acc: &mut Acc, d: u64, dd: &DivD, s: i64, u0: u64, n: u64) {
+    let g0 = g0_residues(ctx, d, dd, s, u0);
+    let p1 = Poly::<M1>::new(g0[0], u0, d);
+    let p2 = Poly::<M2>::new(g0[1], u0, d);
+    let p3 = Poly::<M3>::new(g0[2], u0, d);
     let dpar = (d & 1) as usize;
     let t = ctx.t;
     if n < SIEVE_MIN_LEN {
@@ -287,7 +315,7 @@ struct Patterns {
 }
 
 impl Patterns {
-    fn new(t: &Tables, p1: &Poly, dpar: usize) -> Patterns {
+    fn new(t: &Tables, p1: &Poly<M1>, dpar: usize) -> Patterns {
         // (residue modulus Q, period in t, acceptance table)
         let specs: [(u64, u64, &[bool]); 5] = [
             (192, 192, &t.t192[dpar][..]),
@@ -377,26 +405,30 @@ fn scan_d(ctx: &Ctx, acc: &mut Acc, d: u64, roots: &[u64], count_only: bool) {
     if l >= ctx.z_lo {
         acc.digest.d_values += 1;
     }
-    let first_after = |floor: u64, res: u64| -> u64 {
-        // least u > floor with u ≡ res (mod d); floor < 2⁶³ and res < d ≤ 2⁶³: no overflow
-        let f1 = floor + 1;
-        f1 + (res + d - f1 % d) % d
+    // least u > floor with u ≡ res (mod d), given floor + 1 and (floor + 1) mod d;
+    // floor < 2⁶³ and res < d ≤ 2⁶³: no overflow
+    let (la, lam) = (l + 1, (l + 1) % d);
+    let (lb, lbm) = (lo + 1, (lo + 1) % d);
+    let up = |f1: u64, f1m: u64, res: u64| -> u64 {
+        let delta = if res >= f1m { res - f1m } else { res + d - f1m };
+        f1 + delta
     };
+    let dd = DivD::new(d);
     for &r in roots {
         for s in [1i64, -1] {
             let res = if s == 1 { r } else { (d - r) % d };
-            let anchor = first_after(l, res);
+            let anchor = up(la, lam, res);
             if anchor > ctx.z_lo && anchor <= ctx.z_hi {
                 acc.digest.classes += 1;
             }
-            let u0 = first_after(lo, res);
+            let u0 = up(lb, lbm, res);
             if u0 > ctx.z_hi {
                 continue;
             }
             let n = (ctx.z_hi - u0) / d + 1;
             acc.digest.candidates += n;
             if !count_only {
-                scan_class(ctx, acc, d, s, u0, n);
+                scan_class(ctx, acc, d, &dd, s, u0, n);
             }
         }
     }
