@@ -280,10 +280,36 @@ fn scan_class(ctx: &Ctx, acc: &mut Acc, d: u64, dd: &DivD, s: i64, u0: u64, n: u
     let p3 = Poly::<M3>::new(g0[2], u0, d);
     let dpar = (d & 1) as usize;
     let t = ctx.t;
-    if n < SIEVE_MIN_LEN {
+    if n < 8 {
         for i in 0..n {
             if tier1(t, p1.eval(i), dpar) && tier2(t, p2.eval(i)) && tier3(t, p3.eval(i)) {
                 survivor(ctx, acc, d, s, u0 + d * i);
+            }
+        }
+        return;
+    }
+    if n < SIEVE_MIN_LEN {
+        // g(t) mod M1 by finite differences of the cubic (n < SIEVE_MIN_LEN < M1)
+        let e = [p1.eval(0), p1.eval(1), p1.eval(2), p1.eval(3)];
+        let mut f = e[0];
+        let mut d1 = (e[1] + M1 - e[0]) % M1;
+        let mut d2 = (e[2] + 2 * M1 - 2 * e[1] + e[0]) % M1;
+        let d3 = (e[3] + 3 * e[1] + 4 * M1 - 3 * e[2] - e[0]) % M1;
+        for i in 0..n {
+            if tier1(t, f, dpar) && tier2(t, p2.eval(i)) && tier3(t, p3.eval(i)) {
+                survivor(ctx, acc, d, s, u0 + d * i);
+            }
+            f += d1;
+            if f >= M1 {
+                f -= M1;
+            }
+            d1 += d2;
+            if d1 >= M1 {
+                d1 -= M1;
+            }
+            d2 += d3;
+            if d2 >= M1 {
+                d2 -= M1;
             }
         }
         return;
@@ -336,9 +362,10 @@ impl Patterns {
                 (ev(2) + 2 * q - 2 * ev(1) + ev(0)) % q,
             );
             let d3 = 6 * c[3] % q;
-            let mut bits = [false; 192];
-            for b in bits.iter_mut().take(period as usize) {
-                *b = table[f as usize];
+            // one period of acceptance bits, as words
+            let mut period_bits = [0u64; 3];
+            for i in 0..period as usize {
+                period_bits[i / 64] |= (table[f as usize] as u64) << (i % 64);
                 f += d1;
                 if f >= q {
                     f -= q;
@@ -352,13 +379,24 @@ impl Patterns {
                     d2 -= q;
                 }
             }
-            // window length: a multiple of the period that is ≥ 64
+            // window length: a multiple of the period that is ≥ 64; the buffer holds the
+            // pattern repeated over bits [0, l + 64)
             let l = period * 64u64.div_ceil(period);
             len[j] = l as u32;
-            for i in 0..(6 * 64) {
-                if bits[(i as u64 % period) as usize] {
-                    buf[j][i / 64] |= 1 << (i % 64);
+            let words = (period as usize).div_ceil(64);
+            let mut start = 0usize;
+            while start < (l + 64) as usize {
+                for (wi, &w) in period_bits[..words].iter().enumerate() {
+                    let o = start + wi * 64;
+                    let (x, sh) = (o / 64, o % 64);
+                    if x < 6 {
+                        buf[j][x] |= w << sh;
+                    }
+                    if sh != 0 && x + 1 < 6 {
+                        buf[j][x + 1] |= w >> (64 - sh);
+                    }
                 }
+                start += period as usize;
             }
             debug_assert!(l + 64 <= 6 * 64);
         }
