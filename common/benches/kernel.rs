@@ -172,6 +172,38 @@ fn main() {
         &mut lines,
     );
 
+    let b13 = 10_000_000_000_000u64;
+    let big = measure(
+        k,
+        z0,
+        "B=1e13, large d (beyond words): d ∈ [10¹², 10¹²+2·10⁴), |z| ∈ (Z0, B]",
+        rect(1_000_000_000_000, 1_000_000_020_000, z0, b13),
+        rect(1_000_000_000_000, 1_000_000_000_001, b13 - 300_000, b13),
+        1,
+        &mut lines,
+    );
+
+    // The cost model on a whole main region (B = 10⁸, every d) and on a mixed rectangle.
+    println!("\ncost model against whole rectangles (CPU time, one thread):");
+    for (name, r) in [
+        (
+            "whole main region, B=1e8",
+            rect(1, 25_992_105, z0, 100_000_000),
+        ),
+        (
+            "mixed: d ∈ [10³, 10⁶), |z| ∈ (10⁸, 10⁹]",
+            rect(1_000, 1_000_000, 100_000_000, b9),
+        ),
+    ] {
+        let (t, out) = best(1, || scan_main(k, &r, 1, &|_| {}));
+        let m = estimate_seconds_main(k, &r);
+        println!(
+            "  {name}: {} candidates, {t:.2} CPU-s; model {m:.2} s (model/measured {:.2})",
+            out.digest.candidates,
+            m / t
+        );
+    }
+
     println!("\nsummary (candidates per core-second, one thread):");
     for l in &lines {
         println!(
@@ -205,10 +237,13 @@ fn main() {
     println!("  per d at d≈10⁸ (B=1e9)      : {per_d9:.3e} s with {:.1} candidates and {:.2} classes per d", large9.cand as f64 / large9.nd as f64, large9.classes as f64 / large9.nd as f64);
     println!("  per d at d≈10¹⁰ (B=1e11)    : {per_d11:.3e} s with {:.1} candidates and {:.2} classes per d", large11.cand as f64 / large11.nd as f64, large11.classes as f64 / large11.nd as f64);
     println!(
-        "  compiled-in: PER_D {:.3e}, PER_CLASS {:.3e}, PER_CANDIDATE_SHORT {:.3e}",
-        cost::PER_D,
-        cost::PER_CLASS,
-        cost::PER_CANDIDATE_SHORT
+        "  per d at d≈10¹² (B=1e13)    : {:.3e} s with {:.2} classes per d (GMP per class)",
+        big.cpu / big.nd as f64,
+        big.classes as f64 / big.nd as f64
+    );
+    println!(
+        "  compiled-in: PER_D_BASE {:.2e} + PER_D_PER_BIT {:.2e}·log2 d, PER_CLASS {:.2e} (GMP {:.2e}), PER_CANDIDATE_SHORT {:.2e}, PER_LONG_CLASS {:.2e}",
+        cost::PER_D_BASE, cost::PER_D_PER_BIT, cost::PER_CLASS, cost::PER_CLASS_BIG, cost::PER_CANDIDATE_SHORT, cost::PER_LONG_CLASS
     );
     println!(
         "\ntotal bench wall time {:.1} s",

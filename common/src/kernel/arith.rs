@@ -4,6 +4,8 @@
 //! Everything here works on machine words (`u64`, with `u128` intermediates) and never touches
 //! GMP; callers that need more than 128 bits use `rug` themselves.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 /// `a·b mod m` (any `m ≥ 1`).
 #[inline]
 pub fn mulmod(a: u64, b: u64, m: u64) -> u64 {
@@ -185,7 +187,7 @@ pub fn isqrt_u128(n: u128) -> u128 {
         }
         x = y;
     }
-    while x.checked_mul(x).map_or(true, |v| v > n) {
+    while x.checked_mul(x).is_none_or(|v| v > n) {
         x -= 1;
     }
     while (x + 1).checked_mul(x + 1).is_some_and(|v| v <= n) {
@@ -698,7 +700,7 @@ mod tests {
         ] {
             let r = isqrt_u128(n);
             assert!(
-                r * r <= n && (r + 1).checked_mul(r + 1).map_or(true, |v| v > n),
+                r * r <= n && (r + 1).checked_mul(r + 1).is_none_or(|v| v > n),
                 "{n}"
             );
         }

@@ -6,6 +6,8 @@
 //! predicate from scratch in GMP ([`super::survivor::survives_exact`]) for the digest, and runs
 //! the exact test in GMP. Its cost is `(d_hi − d_lo)·(z_hi − z_lo)`: small rectangles only.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 use super::main_region::main_z_floor;
 use super::survivor::{survives_exact, survivor_hash};
 use super::ScanOutput;

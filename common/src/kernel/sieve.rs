@@ -13,6 +13,8 @@
 //!
 //! Both produce exactly the same roots; the buffers are reused across `d`.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 use super::arith::{
     cbrt_mod_prime, crt_combine, factor_u64, hensel_lift, inv_pow2_64, isqrt_u64, primes_up_to,
     residue, roots_mod_prime_power,
