@@ -9,6 +9,23 @@
 /// `a·b mod m` (any `m ≥ 1`).
 #[inline]
 pub fn mulmod(a: u64, b: u64, m: u64) -> u64 {
+    #[cfg(target_arch = "x86_64")]
+    if a < m && b < m {
+        let p = a as u128 * b as u128;
+        let r: u64;
+        // SAFETY: one `div` of the 128-bit product by m; a, b < m makes the high word < m,
+        // so the quotient fits 64 bits and the instruction cannot fault. No memory access.
+        unsafe {
+            core::arch::asm!(
+                "div {m}",
+                m = in(reg) m,
+                inout("rax") p as u64 => _,
+                inout("rdx") (p >> 64) as u64 => r,
+                options(pure, nomem, nostack)
+            );
+        }
+        return r;
+    }
     ((a as u128 * b as u128) % m as u128) as u64
 }
 
@@ -367,11 +384,8 @@ pub fn cbrt_mod_prime(a: u64, p: u64) -> ([u64; 3], usize) {
         // 3·(2p−1)/3 = 2p − 1 ≡ 1 (mod p − 1)
         return ([mt.from(mt.pow(am, (2 * p - 1) / 3)), 0, 0], 1);
     }
-    // p ≡ 1 (mod 3): a is a cube iff a^((p−1)/3) = 1.
+    // p ≡ 1 (mod 3), p − 1 = 3^s·t with 3 ∤ t.
     let one = mt.to(1);
-    if mt.pow(am, (p - 1) / 3) != one {
-        return ([0; 3], 0);
-    }
     let mut t = p - 1;
     let mut s = 0u32;
     while t % 3 == 0 {
@@ -379,13 +393,18 @@ pub fn cbrt_mod_prime(a: u64, p: u64) -> ([u64; 3], usize) {
         s += 1;
     }
     if s == 1 {
-        // x = a^e with 3e ≡ 1 (mod t) is a root; ω = g^((p−1)/3) for a non-cube g
+        // x = a^e with 3e ≡ 1 (mod t): x³ = a·(a^t)^j, j ∈ {1, 2}, and a^t = a^((p−1)/3) has
+        // order 1 or 3, so x³ = a iff a is a cube (Euler's criterion for free) and then x is
+        // a root; ω = g^t for a non-cube g.
         let e = if t % 3 == 1 {
             (2 * t + 1) / 3
         } else {
             (t + 1) / 3
         };
         let x = mt.pow(am, e);
+        if mt.mul(mt.mul(x, x), x) != am {
+            return ([0; 3], 0);
+        }
         let mut g = 2u64;
         let omega = loop {
             let w = mt.pow(mt.to(g), t);
@@ -400,7 +419,68 @@ pub fn cbrt_mod_prime(a: u64, p: u64) -> ([u64; 3], usize) {
         r.sort_unstable();
         return (r, 3);
     }
-    cbrt_mod_prime_slow(a, p)
+    // s ≥ 2: x = a^e has x³ = a·b with b = (a^t)^j in the subgroup of order 3^(s−1); find
+    // b = H^l with H = G³, G = g^t a generator of the 3-Sylow subgroup (digit by digit), and
+    // return x·G^(−l). Inverses in a group of order 3^s come from powers: y⁻¹ = y^(3^s − 1).
+    let cube = |y: u64| mt.mul(mt.mul(y, y), y);
+    let cube_n = |mut y: u64, n: u32| {
+        for _ in 0..n {
+            y = cube(y);
+        }
+        y
+    };
+    let y = mt.pow(am, t);
+    if cube_n(y, s - 1) != one {
+        return ([0; 3], 0);
+    }
+    let (e, j) = if t % 3 == 1 {
+        ((2 * t + 1) / 3, 2)
+    } else {
+        ((t + 1) / 3, 1)
+    };
+    let mut x = mt.pow(am, e);
+    let b = if j == 1 { y } else { mt.mul(y, y) };
+    let mut g = 2u64;
+    let gen = loop {
+        let w = mt.pow(mt.to(g), t);
+        if cube_n(w, s - 1) != one {
+            break w; // order exactly 3^s
+        }
+        g += 1;
+    };
+    let order = s - 1; // H has order 3^order
+    let h = cube(gen);
+    let zeta = cube_n(h, order - 1); // order 3
+    let zeta2 = mt.mul(zeta, zeta);
+    let pow3 = |n: u32| 3u64.pow(n);
+    let h_inv = mt.pow(h, pow3(order) - 1);
+    let mut l = 0u64;
+    let mut cur = b;
+    for i in 0..order {
+        let c = cube_n(cur, order - 1 - i);
+        let digit = if c == one {
+            0
+        } else if c == zeta {
+            1
+        } else {
+            debug_assert_eq!(c, zeta2);
+            2
+        };
+        if digit > 0 {
+            cur = mt.mul(cur, mt.pow(h_inv, digit * pow3(i)));
+            l += digit * pow3(i);
+        }
+    }
+    let gen_inv = mt.pow(gen, pow3(s) - 1);
+    x = mt.mul(x, mt.pow(gen_inv, l));
+    let omega = cube_n(gen, 0);
+    let omega = mt.pow(omega, pow3(s - 1));
+    let x2 = mt.mul(x, omega);
+    let x3 = mt.mul(x2, omega);
+    debug_assert_eq!(cube(x), am);
+    let mut r = [mt.from(x), mt.from(x2), mt.from(x3)];
+    r.sort_unstable();
+    (r, 3)
 }
 
 /// [`cbrt_mod_prime`] in plain `u128` arithmetic, any `p`, any 3-adic valuation of `p − 1`.
@@ -750,6 +830,30 @@ mod tests {
             out.sort_unstable();
             prop_assert_eq!(&out, &cube_roots_mod(k, n1 * n2));
             prop_assert_eq!(&out, &brute_roots(k, n1 * n2));
+        }
+    }
+
+    #[test]
+    fn cube_roots_when_p_minus_1_has_many_threes() {
+        // primes p ≡ 1 (mod 3^s) exercise the discrete-logarithm correction; every root must
+        // cube to a, and the count must match Euler's criterion (source: definition)
+        for s in 2..=14u32 {
+            let q = 3u64.pow(s);
+            let mut p = 2 * q + 1;
+            while !is_prime_u64(p) {
+                p += 2 * q;
+            }
+            for a in (1..300u64).filter(|a| a % p != 0) {
+                let (r, n) = cbrt_mod_prime(a, p);
+                let expect = if powmod(a, (p - 1) / 3, p) == 1 { 3 } else { 0 };
+                assert_eq!(n, expect, "p={p} a={a}");
+                for &z in &r[..n] {
+                    assert_eq!(mulmod(mulmod(z, z, p), z, p), a % p, "p={p} a={a}");
+                }
+                if n == 3 {
+                    assert!(r[0] < r[1] && r[1] < r[2]);
+                }
+            }
         }
     }
 
