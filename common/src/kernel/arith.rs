@@ -4,9 +4,28 @@
 //! Everything here works on machine words (`u64`, with `u128` intermediates) and never touches
 //! GMP; callers that need more than 128 bits use `rug` themselves.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 /// `a·b mod m` (any `m ≥ 1`).
 #[inline]
 pub fn mulmod(a: u64, b: u64, m: u64) -> u64 {
+    #[cfg(target_arch = "x86_64")]
+    if a < m && b < m {
+        let p = a as u128 * b as u128;
+        let r: u64;
+        // SAFETY: one `div` of the 128-bit product by m; a, b < m makes the high word < m,
+        // so the quotient fits 64 bits and the instruction cannot fault. No memory access.
+        unsafe {
+            core::arch::asm!(
+                "div {m}",
+                m = in(reg) m,
+                inout("rax") p as u64 => _,
+                inout("rdx") (p >> 64) as u64 => r,
+                options(pure, nomem, nostack)
+            );
+        }
+        return r;
+    }
     ((a as u128 * b as u128) % m as u128) as u64
 }
 
@@ -27,10 +46,114 @@ pub fn powmod(mut a: u64, mut e: u64, m: u64) -> u64 {
     r
 }
 
+/// Montgomery arithmetic modulo an odd `n < 2⁶³` (R = 2⁶⁴): products without division.
+#[derive(Clone, Copy, Debug)]
+pub struct Mont {
+    pub n: u64,
+    /// `−n⁻¹ mod 2⁶⁴`
+    ninv: u64,
+    /// `R² mod n`
+    r2: u64,
+}
+
+/// `n⁻¹ mod 2⁶⁴` for odd `n` (Newton's iteration, each step doubles the correct bits).
+#[inline]
+pub fn inv_pow2_64(n: u64) -> u64 {
+    debug_assert!(n & 1 == 1);
+    let mut x = n; // correct to 3 bits: n·n ≡ 1 (mod 8)
+    for _ in 0..5 {
+        x = x.wrapping_mul(2u64.wrapping_sub(n.wrapping_mul(x)));
+    }
+    x
+}
+
+/// `n⁻¹ mod 2¹²⁸` for odd `n`.
+#[inline]
+pub fn inv_pow2_128(n: u64) -> u128 {
+    let x = inv_pow2_64(n) as u128;
+    x.wrapping_mul(2u128.wrapping_sub((n as u128).wrapping_mul(x)))
+}
+
+impl Mont {
+    pub fn new(n: u64) -> Mont {
+        debug_assert!(n & 1 == 1 && n < 1 << 63);
+        let r = ((1u128 << 64) % n as u128) as u64;
+        let r2 = mulmod(r, r, n);
+        Mont {
+            n,
+            ninv: inv_pow2_64(n).wrapping_neg(),
+            r2,
+        }
+    }
+    #[inline]
+    fn redc(&self, t: u128) -> u64 {
+        let m = (t as u64).wrapping_mul(self.ninv);
+        let r = ((t + m as u128 * self.n as u128) >> 64) as u64;
+        if r >= self.n {
+            r - self.n
+        } else {
+            r
+        }
+    }
+    #[inline]
+    pub fn to(&self, a: u64) -> u64 {
+        self.redc((a % self.n) as u128 * self.r2 as u128)
+    }
+    #[inline]
+    pub fn from(&self, a: u64) -> u64 {
+        self.redc(a as u128)
+    }
+    #[inline]
+    pub fn mul(&self, a: u64, b: u64) -> u64 {
+        self.redc(a as u128 * b as u128)
+    }
+    /// `a^e` with `a` and the result in Montgomery form.
+    pub fn pow(&self, a: u64, mut e: u64) -> u64 {
+        let mut r = self.to(1);
+        let mut b = a;
+        while e > 0 {
+            if e & 1 == 1 {
+                r = self.mul(r, b);
+            }
+            b = self.mul(b, b);
+            e >>= 1;
+        }
+        r
+    }
+}
+
+/// `a^e mod n` for odd `n < 2⁶³` through [`Mont`]; other `n` by [`powmod`].
+pub fn powmod_fast(a: u64, e: u64, n: u64) -> u64 {
+    if n & 1 == 1 && n < 1 << 63 && n > 1 {
+        let m = Mont::new(n);
+        m.from(m.pow(m.to(a), e))
+    } else {
+        powmod(a, e, n)
+    }
+}
+
 /// Inverse of `a` modulo `m` (`m ≥ 1`), if `gcd(a, m) = 1`.
 pub fn inv_mod(a: u64, m: u64) -> Option<u64> {
     if m == 1 {
         return Some(0);
+    }
+    if m < 1 << 63 {
+        // Euclid in i64: the Bézout coefficients stay below m in absolute value.
+        let (mut r0, mut r1) = (m as i64, (a % m) as i64);
+        let (mut s0, mut s1) = (0i64, 1i64);
+        while r1 != 0 {
+            let q = r0 / r1;
+            (r0, r1) = (r1, r0 - q * r1);
+            (s0, s1) = (s1, s0 - q * s1);
+        }
+        if r0 != 1 {
+            return None;
+        }
+        return Some(if s0 < 0 {
+            (s0 + m as i64) as u64
+        } else {
+            s0 as u64
+        });
     }
     let (mut r0, mut r1) = (m as i128, (a % m) as i128);
     let (mut s0, mut s1) = (0i128, 1i128);
@@ -81,7 +204,7 @@ pub fn isqrt_u128(n: u128) -> u128 {
         }
         x = y;
     }
-    while x.checked_mul(x).map_or(true, |v| v > n) {
+    while x.checked_mul(x).is_none_or(|v| v > n) {
         x -= 1;
     }
     while (x + 1).checked_mul(x + 1).is_some_and(|v| v <= n) {
@@ -252,11 +375,119 @@ pub fn cbrt_mod_prime(a: u64, p: u64) -> ([u64; 3], usize) {
     if p == 2 || p == 3 {
         return ([a, 0, 0], 1);
     }
+    if p >= 1 << 63 {
+        return cbrt_mod_prime_slow(a, p);
+    }
+    let mt = Mont::new(p);
+    let am = mt.to(a);
     if p % 3 == 2 {
         // 3·(2p−1)/3 = 2p − 1 ≡ 1 (mod p − 1)
+        return ([mt.from(mt.pow(am, (2 * p - 1) / 3)), 0, 0], 1);
+    }
+    // p ≡ 1 (mod 3), p − 1 = 3^s·t with 3 ∤ t.
+    let one = mt.to(1);
+    let mut t = p - 1;
+    let mut s = 0u32;
+    while t % 3 == 0 {
+        t /= 3;
+        s += 1;
+    }
+    if s == 1 {
+        // x = a^e with 3e ≡ 1 (mod t): x³ = a·(a^t)^j, j ∈ {1, 2}, and a^t = a^((p−1)/3) has
+        // order 1 or 3, so x³ = a iff a is a cube (Euler's criterion for free) and then x is
+        // a root; ω = g^t for a non-cube g.
+        let e = if t % 3 == 1 {
+            (2 * t + 1) / 3
+        } else {
+            (t + 1) / 3
+        };
+        let x = mt.pow(am, e);
+        if mt.mul(mt.mul(x, x), x) != am {
+            return ([0; 3], 0);
+        }
+        let mut g = 2u64;
+        let omega = loop {
+            let w = mt.pow(mt.to(g), t);
+            if w != one {
+                break w;
+            }
+            g += 1;
+        };
+        let x2 = mt.mul(x, omega);
+        let x3 = mt.mul(x2, omega);
+        let mut r = [mt.from(x), mt.from(x2), mt.from(x3)];
+        r.sort_unstable();
+        return (r, 3);
+    }
+    // s ≥ 2: x = a^e has x³ = a·b with b = (a^t)^j in the subgroup of order 3^(s−1); find
+    // b = H^l with H = G³, G = g^t a generator of the 3-Sylow subgroup (digit by digit), and
+    // return x·G^(−l). Inverses in a group of order 3^s come from powers: y⁻¹ = y^(3^s − 1).
+    let cube = |y: u64| mt.mul(mt.mul(y, y), y);
+    let cube_n = |mut y: u64, n: u32| {
+        for _ in 0..n {
+            y = cube(y);
+        }
+        y
+    };
+    let y = mt.pow(am, t);
+    if cube_n(y, s - 1) != one {
+        return ([0; 3], 0);
+    }
+    let (e, j) = if t % 3 == 1 {
+        ((2 * t + 1) / 3, 2)
+    } else {
+        ((t + 1) / 3, 1)
+    };
+    let mut x = mt.pow(am, e);
+    let b = if j == 1 { y } else { mt.mul(y, y) };
+    let mut g = 2u64;
+    let gen = loop {
+        let w = mt.pow(mt.to(g), t);
+        if cube_n(w, s - 1) != one {
+            break w; // order exactly 3^s
+        }
+        g += 1;
+    };
+    let order = s - 1; // H has order 3^order
+    let h = cube(gen);
+    let zeta = cube_n(h, order - 1); // order 3
+    let zeta2 = mt.mul(zeta, zeta);
+    let pow3 = |n: u32| 3u64.pow(n);
+    let h_inv = mt.pow(h, pow3(order) - 1);
+    let mut l = 0u64;
+    let mut cur = b;
+    for i in 0..order {
+        let c = cube_n(cur, order - 1 - i);
+        let digit = if c == one {
+            0
+        } else if c == zeta {
+            1
+        } else {
+            debug_assert_eq!(c, zeta2);
+            2
+        };
+        if digit > 0 {
+            cur = mt.mul(cur, mt.pow(h_inv, digit * pow3(i)));
+            l += digit * pow3(i);
+        }
+    }
+    let gen_inv = mt.pow(gen, pow3(s) - 1);
+    x = mt.mul(x, mt.pow(gen_inv, l));
+    let omega = cube_n(gen, 0);
+    let omega = mt.pow(omega, pow3(s - 1));
+    let x2 = mt.mul(x, omega);
+    let x3 = mt.mul(x2, omega);
+    debug_assert_eq!(cube(x), am);
+    let mut r = [mt.from(x), mt.from(x2), mt.from(x3)];
+    r.sort_unstable();
+    (r, 3)
+}
+
+/// [`cbrt_mod_prime`] in plain `u128` arithmetic, any `p`, any 3-adic valuation of `p − 1`.
+fn cbrt_mod_prime_slow(a: u64, p: u64) -> ([u64; 3], usize) {
+    if p % 3 == 2 {
         return ([powmod(a, (2 * p - 1) / 3, p), 0, 0], 1);
     }
-    // p ≡ 1 (mod 3): a is a cube iff a^((p−1)/3) = 1.
     if powmod(a, (p - 1) / 3, p) != 1 {
         return ([0; 3], 0);
     }
@@ -549,7 +780,7 @@ mod tests {
         ] {
             let r = isqrt_u128(n);
             assert!(
-                r * r <= n && (r + 1).checked_mul(r + 1).map_or(true, |v| v > n),
+                r * r <= n && (r + 1).checked_mul(r + 1).is_none_or(|v| v > n),
                 "{n}"
             );
         }
@@ -599,6 +830,30 @@ mod tests {
             out.sort_unstable();
             prop_assert_eq!(&out, &cube_roots_mod(k, n1 * n2));
             prop_assert_eq!(&out, &brute_roots(k, n1 * n2));
+        }
+    }
+
+    #[test]
+    fn cube_roots_when_p_minus_1_has_many_threes() {
+        // primes p ≡ 1 (mod 3^s) exercise the discrete-logarithm correction; every root must
+        // cube to a, and the count must match Euler's criterion (source: definition)
+        for s in 2..=14u32 {
+            let q = 3u64.pow(s);
+            let mut p = 2 * q + 1;
+            while !is_prime_u64(p) {
+                p += 2 * q;
+            }
+            for a in (1..300u64).filter(|a| a % p != 0) {
+                let (r, n) = cbrt_mod_prime(a, p);
+                let expect = if powmod(a, (p - 1) / 3, p) == 1 { 3 } else { 0 };
+                assert_eq!(n, expect, "p={p} a={a}");
+                for &z in &r[..n] {
+                    assert_eq!(mulmod(mulmod(z, z, p), z, p), a % p, "p={p} a={a}");
+                }
+                if n == 3 {
+                    assert!(r[0] < r[1] && r[1] < r[2]);
+                }
+            }
         }
     }
 

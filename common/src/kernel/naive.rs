@@ -6,30 +6,37 @@
 //! predicate from scratch in GMP ([`super::survivor::survives_exact`]) for the digest, and runs
 //! the exact test in GMP. Its cost is `(d_hi − d_lo)·(z_hi − z_lo)`: small rectangles only.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 use super::main_region::main_z_floor;
 use super::survivor::{survives_exact, survivor_hash};
 use super::ScanOutput;
 use crate::{Digest, Rect, Solution};
 use rug::Integer;
 
-/// `d < α·u`, i.e. `(d + u)³ < 2u³`, in big integers.
+/// `d < α·u`, i.e. `(d + u)³ < 2u³` (machine words while they suffice, else GMP).
 fn in_region_d(d: u64, u: u64) -> bool {
-    let a = Integer::from(d) + u;
+    let a = d as u128 + u as u128;
+    if a < 1 << 42 {
+        let uu = u as u128;
+        return a * a * a < 2 * uu * uu * uu;
+    }
+    let a = Integer::from(a);
     let lhs: Integer = a.clone() * &a * &a;
     let uu = Integer::from(u);
     let rhs: Integer = Integer::from(2) * &uu * &uu * &uu;
     lhs < rhs
 }
 
+/// `u³ mod d`.
+fn cube_mod(d: u64, u: u64) -> u128 {
+    let um = (u % d) as u128;
+    (um * um % d as u128) * um % d as u128
+}
+
 /// Does `d` divide `s·u³ − k` (i.e. `z³ − k` for `z = s·u`)?
 fn divides(k: i64, d: u64, s: i64, u: u64) -> bool {
-    if d == 1 {
-        return true;
-    }
-    let um = (u % d) as u128;
-    let c = (um * um % d as u128) * um % d as u128;
-    let kk = (s as i128 * k as i128).rem_euclid(d as i128) as u128;
-    c == kk
+    cube_mod(d, u) == (s as i128 * k as i128).rem_euclid(d as i128) as u128
 }
 
 /// The exact test, all in GMP.
@@ -64,13 +71,17 @@ pub fn scan_main_naive(k: i64, rect: &Rect) -> ScanOutput {
             debug_assert!(in_region(d, lowest) && (lowest == 1 || !in_region(d, lowest - 1)));
             dg.d_values += 1;
         }
+        let kp = (k as i128).rem_euclid(d as i128) as u128; // z = +u: u³ ≡ k
+        let km = (-(k as i128)).rem_euclid(d as i128) as u128; // z = −u: u³ ≡ −k
         let mut u = rect.z_lo + 1;
         while u <= rect.z_hi {
             if in_region(d, u) {
+                let c = cube_mod(d, u);
                 for s in [1i64, -1] {
-                    if !divides(k, d, s, u) {
+                    if c != if s == 1 { kp } else { km } {
                         continue;
                     }
+                    debug_assert!(divides(k, d, s, u));
                     dg.candidates += 1;
                     // the class (d, s·u mod d, s) is counted where its first member is
                     if u <= d || !in_region(d, u - d) {

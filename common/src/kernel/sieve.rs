@@ -13,24 +13,65 @@
 //!
 //! Both produce exactly the same roots; the buffers are reused across `d`.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 use super::arith::{
-    cbrt_mod_prime, crt_combine, factor_u64, hensel_lift, isqrt_u64, primes_up_to, residue,
-    roots_mod_prime_power,
+    cbrt_mod_prime, crt_combine, factor_u64, hensel_lift, inv_pow2_64, isqrt_u64, primes_up_to,
+    residue, roots_mod_prime_power,
 };
 
 /// Segment length (values of `d` per sweep).
-pub const SEG: usize = 4096;
+pub const SEG: usize = 8192;
 /// Most distinct primes a `d < 2⁶⁴` can have below `√d` (2·3·5·…·47 > 2⁶⁴).
 const MAXF: usize = 15;
 
 #[derive(Clone, Debug)]
 struct Good {
     p: u64,
+    /// `p⁻¹ mod 2⁶⁴` and `⌊(2⁶⁴−1)/p⌋` for division-free divisibility tests (odd `p`)
+    pinv: u64,
+    plim: u64,
     /// number of roots mod p, or `SPECIAL` when `p | 3k`
     n: u8,
     roots: [u64; 3],
 }
 const SPECIAL: u8 = u8::MAX;
+
+impl Good {
+    fn new(p: u64, n: u8, roots: [u64; 3]) -> Good {
+        let (pinv, plim) = if p & 1 == 1 {
+            (inv_pow2_64(p), u64::MAX / p)
+        } else {
+            (0, 0)
+        };
+        Good {
+            p,
+            pinv,
+            plim,
+            n,
+            roots,
+        }
+    }
+    /// Divide out `p` from `rem` completely; the exponent.
+    #[inline]
+    fn strip(&self, rem: &mut u64) -> u32 {
+        if self.p == 2 {
+            let e = rem.trailing_zeros();
+            *rem >>= e;
+            return e;
+        }
+        let mut e = 0;
+        loop {
+            // rem·p⁻¹ mod 2⁶⁴ is rem/p when p | rem, and exceeds ⌊(2⁶⁴−1)/p⌋ otherwise
+            let q = rem.wrapping_mul(self.pinv);
+            if q > self.plim {
+                return e;
+            }
+            *rem = q;
+            e += 1;
+        }
+    }
+}
 
 /// The primes up to `√d_max`, classified for one `k` (built once per rectangle).
 pub struct PrimeTable {
@@ -63,22 +104,14 @@ impl PrimeTable {
                     lists.push(roots_mod_prime_power(k, p, e));
                 }
                 special.push((p, lists));
-                good.push(Good {
-                    p,
-                    n: SPECIAL,
-                    roots: [0; 3],
-                });
+                good.push(Good::new(p, SPECIAL, [0; 3]));
                 continue;
             }
             let (r, n) = cbrt_mod_prime(residue(k, p), p);
             if n == 0 {
                 bad.push(p);
             } else {
-                good.push(Good {
-                    p,
-                    n: n as u8,
-                    roots: r,
-                });
+                good.push(Good::new(p, n as u8, r));
             }
         }
         PrimeTable {
@@ -188,6 +221,9 @@ pub fn for_each_d(
     };
     debug_assert!(t.k == k);
     debug_assert!(d_hi <= 1 || isqrt_u64(d_hi - 1) <= t.limit);
+    // next multiple of each prime at or after the segment start, carried across segments
+    let mut next_bad: Vec<u64> = t.bad.iter().map(|&p| (p - d_lo % p) % p).collect();
+    let mut next_good: Vec<u64> = t.good.iter().map(|g| (g.p - d_lo % g.p) % g.p).collect();
     let mut a = d_lo;
     while a < d_hi {
         let len = ((d_hi - a) as usize).min(SEG);
@@ -196,24 +232,26 @@ pub fn for_each_d(
             sc.dead[i] = false;
             sc.nf[i] = 0;
         }
-        for &p in &t.bad {
-            let mut j = ((p - a % p) % p) as usize;
+        for (&p, nx) in t.bad.iter().zip(next_bad.iter_mut()) {
+            let mut j = *nx as usize;
             while j < len {
                 sc.dead[j] = true;
                 j += p as usize;
             }
+            *nx = (j - len) as u64;
         }
-        for (gi, g) in t.good.iter().enumerate() {
-            let p = g.p;
-            let mut j = ((p - a % p) % p) as usize;
+        for (gi, (g, nx)) in t.good.iter().zip(next_good.iter_mut()).enumerate() {
+            let p = g.p as usize;
+            let mut j = *nx as usize;
             while j < len {
                 if !sc.dead[j] {
                     let n = sc.nf[j] as usize;
                     sc.fac[j * MAXF + n] = gi as u32;
                     sc.nf[j] = n as u8 + 1;
                 }
-                j += p as usize;
+                j += p;
             }
+            *nx = (j - len) as u64;
         }
         for i in 0..len {
             let d = a + i as u64;
@@ -228,11 +266,7 @@ pub fn for_each_d(
             for c in 0..sc.nf[i] as usize {
                 let g = &t.good[sc.fac[i * MAXF + c] as usize];
                 let p = g.p;
-                let mut e = 0u32;
-                while rem % p == 0 {
-                    rem /= p;
-                    e += 1;
-                }
+                let e = g.strip(&mut rem);
                 if g.n == SPECIAL {
                     let lists = &t
                         .special

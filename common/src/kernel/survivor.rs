@@ -20,6 +20,8 @@
 //! Each test reads `g mod 3q` (or `g mod 81` for `q = 27`) from one of three combined moduli
 //! [`M1`], [`M2`], [`M3`], grouped in tiers so that most candidates need only the first.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 /// The auxiliary moduli `q` of the sieve (kernel version 1).
 pub const SIEVE_MODULI: [u64; 15] = [64, 27, 5, 7, 11, 13, 17, 19, 23, 29, 31, 37, 41, 43, 47];
 
