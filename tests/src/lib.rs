@@ -529,12 +529,17 @@ pub struct HandWorker {
 
 impl HandWorker {
     pub fn enrol(base: &str, owner: &str) -> Result<HandWorker> {
+        Self::enrol_with_key(base, owner, sign::generate())
+    }
+
+    /// Enrol with a given key (e.g. one read from a real worker's state directory).
+    pub fn enrol_with_key(base: &str, owner: &str, key: sign::SecretKey) -> Result<HandWorker> {
         let http = reqwest::blocking::Client::builder()
             .timeout(Duration::from_secs(30))
             .build()?;
         let mut w = HandWorker {
             base: base.trim_end_matches('/').to_string(),
-            key: sign::generate(),
+            key,
             worker_id: 0,
             coordinator_key: String::new(),
             http,

@@ -16,7 +16,7 @@ use cubehunt_common::kernel;
 use cubehunt_common::{Rect, Region};
 
 /// Target work per chunk, in seconds of one reference core.
-pub const CHUNK_SECONDS: f64 = 3.0;
+pub const CHUNK_SECONDS: f64 = 2.0;
 /// Most chunks a unit is cut into (very large units get proportionally larger chunks).
 pub const MAX_CHUNKS: usize = 2000;
 
