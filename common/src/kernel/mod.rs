@@ -91,7 +91,12 @@ pub type Progress<'a> = &'a (dyn Fn(u64) + Sync);
 
 /// Search one rectangle on `threads` threads (0 = all cores). The digest does not depend on
 /// `threads`. Every solution is verified in big integers before it is returned.
-pub fn scan(k: i64, rect: &Rect, threads: usize, progress: Progress) -> Result<ScanOutput, KernelError> {
+pub fn scan(
+    k: i64,
+    rect: &Rect,
+    threads: usize,
+    progress: Progress,
+) -> Result<ScanOutput, KernelError> {
     let _ = (k, rect, threads, progress);
     unimplemented!("kernel: scan")
 }
