@@ -764,3 +764,300 @@ pub fn sample(ids: &[i64], fraction: f64, seed: u64) -> Vec<usize> {
     out.sort_unstable();
     out
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::tiling::testgeom;
+
+    /// Verify against the test geometry (independent of the kernel's implementation).
+    fn verify_t(doc: &Certificate, pinned: Option<&str>) -> Result<Summary, Vec<Finding>> {
+        let geom = testgeom::geometry(doc.k, doc.bound);
+        let opts = VerifyOptions {
+            pinned_key: pinned.map(str::to_string),
+            ..Default::default()
+        };
+        verify_impl(doc, &opts, Ok(()), Some(&geom), &|_| Ok(()))
+    }
+
+    fn units(k: i64, bound: u64) -> Vec<CertUnit> {
+        testgeom::plan(k, bound, 7)
+            .into_iter()
+            .map(|t| CertUnit {
+                id: t.id,
+                rect: t.rect,
+                digest: Digest {
+                    d_values: 1,
+                    classes: 2,
+                    candidates: 10 + t.id as u64,
+                    survivors: 1,
+                    hash: t.id as u64 * 0x9e37,
+                },
+                settled_by: vec![
+                    Settler {
+                        worker: 2,
+                        owner: "bea".into(),
+                    },
+                    Settler {
+                        worker: 1,
+                        owner: "ana".into(),
+                    },
+                ],
+            })
+            .collect()
+    }
+
+    // k = 3: (1, 1, 1) and (4, 4, −5), from memory, confirmed by the exact check below.
+    fn sols() -> Vec<Solution> {
+        vec![Solution::new(4, 4, -5), Solution::new(1, 1, 1)]
+    }
+
+    fn good(key: &sign::SecretKey) -> Certificate {
+        Certificate::issue(
+            "spring-run",
+            3,
+            40,
+            KERNEL_VERSION,
+            1_764_636_736,
+            units(3, 40),
+            sols(),
+            key,
+        )
+    }
+
+    fn checks_of(e: &[Finding]) -> Vec<&str> {
+        e.iter()
+            .filter(|f| f.is_error())
+            .map(|f| f.check.as_str())
+            .collect()
+    }
+
+    #[test]
+    fn a_good_certificate_verifies_after_a_json_round_trip() {
+        let key = sign::generate();
+        let c = good(&key);
+        assert!(sols().iter().all(|s| s.verify(3)));
+        assert_eq!(
+            c.solutions,
+            vec![Solution::new(-5, 4, 4), Solution::new(1, 1, 1)]
+        );
+        assert!(c.units.windows(2).all(|w| w[0].id < w[1].id));
+        assert_eq!(c.units[0].settled_by[0].owner, "ana");
+        let json = serde_json::to_string_pretty(&c).unwrap();
+        assert!(
+            json.contains("\"digest\": \"h"),
+            "digest travels in text form"
+        );
+        let back: Certificate = serde_json::from_str(&json).unwrap();
+        assert_eq!(back, c);
+        let s = verify_t(&back, Some(&sign::public_to_hex(&key.verifying_key()))).expect("holds");
+        assert_eq!(
+            (s.k, s.bound, s.units, s.solutions.len()),
+            (3, 40, c.units.len(), 2)
+        );
+        assert!(s.warnings.is_empty(), "{:?}", s.warnings);
+        let text = c.render_text();
+        assert!(text.contains("min(|x|,|y|,|z|) ≤ 40"), "{text}");
+        assert!(text.contains("-5, 4, 4"), "{text}");
+        assert!(text.contains("2025-12-02T00:52:16Z"), "{text}");
+    }
+
+    #[test]
+    fn a_gap_fails() {
+        let key = sign::generate();
+        let mut us = units(3, 40);
+        let gone = us
+            .iter()
+            .position(|u| u.rect.region == Region::Main)
+            .unwrap()
+            + 2;
+        let rect = us.remove(gone).rect;
+        let c = Certificate::issue("spring-run", 3, 40, KERNEL_VERSION, 0, us, sols(), &key);
+        let e = verify_t(&c, None).unwrap_err();
+        assert_eq!(checks_of(&e), vec!["tiling"], "{e:?}");
+        assert!(
+            e[0].subject
+                .contains(&format!("d∈[{},{})", rect.d_lo, rect.d_hi)),
+            "{e:?}"
+        );
+    }
+
+    #[test]
+    fn a_wrong_solution_or_one_beyond_the_bound_fails() {
+        let key = sign::generate();
+        let mut s = sols();
+        s.push(Solution::new(1, 1, 2));
+        let c = Certificate::issue(
+            "spring-run",
+            3,
+            40,
+            KERNEL_VERSION,
+            0,
+            units(3, 40),
+            s,
+            &key,
+        );
+        let e = verify_t(&c, None).unwrap_err();
+        assert_eq!(checks_of(&e), vec!["solution"], "{e:?}");
+        assert!(e[0].subject.contains("(1, 1, 2)"), "{e:?}");
+
+        let c = Certificate::issue(
+            "spring-run",
+            3,
+            3,
+            KERNEL_VERSION,
+            0,
+            units(3, 3),
+            sols(),
+            &key,
+        );
+        let e = verify_t(&c, None).unwrap_err();
+        assert_eq!(checks_of(&e), vec!["solution"], "{e:?}");
+        assert!(e[0].message.contains("exceeds the bound 3"), "{e:?}");
+    }
+
+    #[test]
+    fn a_bad_signature_fails() {
+        let key = sign::generate();
+        let c = good(&key);
+        // Altered after signing: the claim widened to a larger bound.
+        let mut t = c.clone();
+        t.bound = 41;
+        let e = verify_t(&t, None).unwrap_err();
+        assert!(checks_of(&e).contains(&"signature"), "{e:?}");
+        // A solution dropped after signing.
+        let mut t = c.clone();
+        t.solutions.pop();
+        assert!(checks_of(&verify_t(&t, None).unwrap_err()).contains(&"signature"));
+        // Corrupted signature bytes.
+        let mut t = c.clone();
+        let flip = if t.signature.starts_with('0') {
+            "1"
+        } else {
+            "0"
+        };
+        t.signature.replace_range(0..1, flip);
+        assert_eq!(
+            checks_of(&verify_t(&t, None).unwrap_err()),
+            vec!["signature"]
+        );
+        // Someone else's key, embedded with its own valid signature: fine alone, refused when pinned.
+        let other = sign::generate();
+        let forged = good(&other);
+        assert!(verify_t(&forged, None).is_ok());
+        let pin = sign::public_to_hex(&key.verifying_key());
+        assert_eq!(
+            checks_of(&verify_t(&forged, Some(&pin)).unwrap_err()),
+            vec!["signature"]
+        );
+        // A signature moved from one certificate to another.
+        let mut t = good(&other);
+        t.signature = c.signature.clone();
+        assert_eq!(
+            checks_of(&verify_t(&t, None).unwrap_err()),
+            vec!["signature"]
+        );
+    }
+
+    #[test]
+    fn an_altered_unit_breaks_the_root() {
+        let key = sign::generate();
+        let mut c = good(&key);
+        c.units[3].digest.hash ^= 1;
+        let e = verify_t(&c, None).unwrap_err();
+        assert_eq!(checks_of(&e), vec!["root"], "{e:?}");
+        let mut c = good(&key);
+        c.units[1].settled_by[0].owner = "cal".into();
+        assert_eq!(checks_of(&verify_t(&c, None).unwrap_err()), vec!["root"]);
+        // Reordered or repeated units.
+        let mut c = good(&key);
+        c.units.swap(0, 1);
+        let e = verify_t(&c, None).unwrap_err();
+        assert!(
+            checks_of(&e).contains(&"format") && checks_of(&e).contains(&"root"),
+            "{e:?}"
+        );
+    }
+
+    #[test]
+    fn unknown_format_is_refused() {
+        let key = sign::generate();
+        let mut c = good(&key);
+        c.format = "something-else/9".into();
+        assert_eq!(checks_of(&verify_t(&c, None).unwrap_err()), vec!["format"]);
+    }
+
+    /// RFC 6962 §2.1 written out literally, for comparison with the implementation.
+    fn naive_root(leaves: &[Vec<u8>]) -> [u8; 32] {
+        fn h(parts: &[&[u8]]) -> [u8; 32] {
+            let mut s = Sha256::new();
+            for p in parts {
+                s.update(p);
+            }
+            s.finalize().into()
+        }
+        match leaves.len() {
+            0 => h(&[]),
+            1 => h(&[&[0], &leaves[0]]),
+            n => {
+                let mut k = 1;
+                while 2 * k < n {
+                    k *= 2;
+                }
+                h(&[&[1], &naive_root(&leaves[..k]), &naive_root(&leaves[k..])])
+            }
+        }
+    }
+
+    #[test]
+    fn merkle_root_is_rfc6962() {
+        // SHA-256 of the empty string, from memory, confirmed with Python's hashlib.
+        assert_eq!(
+            hex::encode(merkle_root(&[])),
+            "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855"
+        );
+        let us = units(30, 300);
+        assert!(us.len() > 40);
+        for n in 0..us.len() {
+            let leaves: Vec<Vec<u8>> = us[..n].iter().map(|u| u.leaf_bytes()).collect();
+            assert_eq!(merkle_root(&us[..n]), naive_root(&leaves), "n = {n}");
+        }
+        assert_eq!(
+            String::from_utf8(us[0].leaf_bytes()).unwrap(),
+            "cubehunt-cert-unit/1\nid=1\nregion=small\nd=0..0\nz=0..5\ndigest=h0000000000009e37-d1-r2-c11-s1\nsettled_by=2:\"bea\",1:\"ana\"\n"
+        );
+    }
+
+    #[test]
+    fn sampling_is_deterministic_and_sized() {
+        let ids: Vec<i64> = (100..1100).collect();
+        let a = sample(&ids, 0.05, 7);
+        assert_eq!(a.len(), 50);
+        let mut rev = ids.clone();
+        rev.reverse();
+        let b: Vec<i64> = sample(&rev, 0.05, 7).iter().map(|&i| rev[i]).collect();
+        let mut a_ids: Vec<i64> = a.iter().map(|&i| ids[i]).collect();
+        let mut b = b;
+        a_ids.sort();
+        b.sort();
+        assert_eq!(a_ids, b, "the sample depends on ids and seed, not order");
+        assert_ne!(sample(&ids, 0.05, 8), a);
+        assert_eq!(sample(&ids, 1e-9, 1).len(), 1);
+        assert_eq!(sample(&ids, 2.0, 1).len(), 1000);
+        assert!(sample(&ids, 0.0, 1).is_empty());
+    }
+
+    #[test]
+    fn utc_text_matches_python_datetime() {
+        // Reference values from Python's datetime.fromtimestamp(t, timezone.utc).
+        for (t, s) in [
+            (0, "1970-01-01T00:00:00Z"),
+            (951_782_400, "2000-02-29T00:00:00Z"),
+            (1_764_636_736, "2025-12-02T00:52:16Z"),
+            (-86_400, "1969-12-31T00:00:00Z"),
+            (4_102_444_800, "2100-01-01T00:00:00Z"),
+        ] {
+            assert_eq!(utc_text(t), s);
+        }
+    }
+}
