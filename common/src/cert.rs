@@ -1048,6 +1048,179 @@ mod tests {
     }
 
     #[test]
+    fn the_kernel_geometry_agrees_with_the_independent_one() {
+        for d in (1..3000u64).chain([10_000_000, 123_456_789_012]) {
+            assert_eq!(
+                kernel::main_z_floor(d),
+                testgeom::floor_d_over_alpha(d),
+                "d = {d}"
+            );
+        }
+        for (k, b) in [
+            (3i64, 1u64),
+            (3, 2),
+            (30, 1000),
+            (114, 10),
+            (390, 19),
+            (390, 20),
+            (33, 123_456),
+        ] {
+            let g = Geometry::of_target(k, b);
+            let t = testgeom::geometry(k, b);
+            assert_eq!(g.z0, t.z0, "k={k}");
+            if b > g.z0 {
+                assert_eq!(g.main_d_end, t.main_d_end, "k={k} B={b}");
+            }
+        }
+    }
+
+    /// Units with digests computed by the kernel: small plan of a target in pieces.
+    fn scanned(k: i64, bound_from: u64, bound_to: u64, first_id: i64) -> Vec<CertUnit> {
+        let z0 = kernel::z0(k);
+        let mut rects = Vec::new();
+        if bound_from < z0 {
+            rects.push(Rect {
+                region: Region::Small,
+                d_lo: 0,
+                d_hi: 0,
+                z_lo: bound_from,
+                z_hi: z0.min(bound_to),
+            });
+        }
+        let lo = bound_from.max(z0);
+        if bound_to > lo {
+            rects.push(Rect {
+                region: Region::Equal,
+                d_lo: 0,
+                d_hi: 0,
+                z_lo: lo,
+                z_hi: bound_to,
+            });
+            let d_end = kernel::domain(k, bound_to, Region::Main).unwrap().d_hi;
+            let mut a = 1;
+            while a < d_end {
+                let b = (a + 5).min(d_end);
+                let zl = lo.max(kernel::main_z_floor(a));
+                if zl < bound_to {
+                    rects.push(Rect {
+                        region: Region::Main,
+                        d_lo: a,
+                        d_hi: b,
+                        z_lo: zl,
+                        z_hi: bound_to,
+                    });
+                }
+                a = b;
+            }
+        }
+        rects
+            .into_iter()
+            .enumerate()
+            .map(|(i, rect)| {
+                let out = kernel::scan(k, &rect, 1, &|_| {}).unwrap();
+                CertUnit {
+                    id: first_id + i as i64,
+                    rect,
+                    digest: out.digest,
+                    settled_by: vec![],
+                }
+            })
+            .collect()
+    }
+
+    #[test]
+    fn with_the_kernel_extension_keeps_the_old_certificate_and_recheck_catches_a_false_digest() {
+        let key = sign::generate();
+        let k = 30; // Z0 = 5
+        let (b1, b2) = (60u64, 150u64);
+        let old = scanned(k, 0, b1, 1);
+        let new = scanned(k, b1, b2, 1000);
+        let c1 = Certificate::issue("ext", k, b1, KERNEL_VERSION, 0, old.clone(), vec![], &key);
+        let opts = VerifyOptions {
+            recheck: 1.0,
+            seed: 5,
+            ..Default::default()
+        };
+        let s = verify_certificate_with(&c1, &opts).expect("the first certificate holds");
+        assert_eq!(s.rechecked, old.len());
+        // After extension every unit planned for B1 is still the one needed for B1, and the
+        // new ones are not needed for B1.
+        let all: Vec<CertUnit> = old.iter().chain(&new).cloned().collect();
+        let needed_b1: Vec<i64> = all
+            .iter()
+            .filter(|u| needed_for_bound(k, b1, &u.rect))
+            .map(|u| u.id)
+            .collect();
+        assert_eq!(needed_b1, old.iter().map(|u| u.id).collect::<Vec<_>>());
+        assert!(all.iter().all(|u| needed_for_bound(k, b2, &u.rect)));
+        let again = Certificate::issue(
+            "ext",
+            k,
+            b1,
+            KERNEL_VERSION,
+            0,
+            all.iter()
+                .filter(|u| needed_for_bound(k, b1, &u.rect))
+                .cloned()
+                .collect(),
+            vec![],
+            &key,
+        );
+        assert_eq!(again.root, c1.root, "same units, same root");
+        let c2 = Certificate::issue("ext", k, b2, KERNEL_VERSION, 0, all.clone(), vec![], &key);
+        assert!(verify_certificate(&c2).is_ok());
+        assert!(
+            verify_certificate(&c1).is_ok(),
+            "the old certificate still holds for its bound"
+        );
+        // The old units alone do not cover the new bound.
+        let short = Certificate::issue("ext", k, b2, KERNEL_VERSION, 0, old.clone(), vec![], &key);
+        assert!(checks_of(&verify_certificate(&short).unwrap_err()).contains(&"tiling"));
+        // A coordinator that signs a made-up digest passes the offline checks but not a recheck.
+        let mut lie = old.clone();
+        lie[2].digest.hash ^= 0x40;
+        let c = Certificate::issue("ext", k, b1, KERNEL_VERSION, 0, lie, vec![], &key);
+        assert!(verify_certificate(&c).is_ok());
+        let e = verify_certificate_with(&c, &opts).unwrap_err();
+        assert_eq!(checks_of(&e), vec!["recheck"], "{e:?}");
+        assert!(e[0].subject == format!("unit {}", old[2].id), "{e:?}");
+    }
+
+    #[test]
+    fn with_the_kernel_a_missing_solution_is_found_by_recheck() {
+        // k = 3: (1, 1, 1) and (4, 4, −5), from memory; the kernel must find both up to 10.
+        let key = sign::generate();
+        let us = scanned(3, 0, 10, 1);
+        let full = Certificate::issue("k3", 3, 10, KERNEL_VERSION, 0, us.clone(), sols(), &key);
+        let opts = VerifyOptions {
+            recheck: 1.0,
+            seed: 1,
+            ..Default::default()
+        };
+        verify_certificate_with(&full, &opts).expect("holds");
+        let missing = Certificate::issue(
+            "k3",
+            3,
+            10,
+            KERNEL_VERSION,
+            0,
+            us,
+            vec![Solution::new(1, 1, 1)],
+            &key,
+        );
+        assert!(
+            verify_certificate(&missing).is_ok(),
+            "offline checks cannot see a missing solution"
+        );
+        let e = verify_certificate_with(&missing, &opts).unwrap_err();
+        assert!(
+            e.iter()
+                .any(|f| f.check == "recheck" && f.message.contains("(-5, 4, 4)")),
+            "{e:?}"
+        );
+    }
+
+    #[test]
     fn utc_text_matches_python_datetime() {
         // Reference values from Python's datetime.fromtimestamp(t, timezone.utc).
         for (t, s) in [
