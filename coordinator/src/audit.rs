@@ -705,6 +705,10 @@ fn check_unit(
                 }
             }
         }
+        // The coordinator stores claimed solutions sorted and without repeats.
+        let mut body_sols = b.solutions.clone();
+        body_sols.sort();
+        body_sols.dedup();
         let sols_col = parse_solutions(&r.solutions);
         let mut mismatch = Vec::new();
         if b.lease_id != r.lease_id {
@@ -726,7 +730,7 @@ fn check_unit(
             ));
         }
         match &sols_col {
-            Ok(s) if *s == b.solutions => {}
+            Ok(s) if *s == body_sols => {}
             Ok(_) => mismatch.push("solutions".to_string()),
             Err(e) => mismatch.push(e.clone()),
         }
@@ -769,7 +773,7 @@ fn check_unit(
             ));
         }
         if valid {
-            let sols = b.solutions.clone();
+            let sols = body_sols;
             counted.push(Counted {
                 id: r.id,
                 owner: w.owner.clone(),
