@@ -320,7 +320,7 @@ pub async fn run_export(a: ExportArgs) -> Result<i32> {
     let store = open_store(&dir).await?;
     let n = match &a.out {
         None => {
-            let mut o = std::io::BufWriter::new(std::io::stdout().lock());
+            let mut o = std::io::BufWriter::new(std::io::stdout());
             export::export(&store, &a.campaign, a.what, a.format, &mut o).await?
         }
         Some(p) => {

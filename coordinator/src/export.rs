@@ -32,7 +32,7 @@ pub fn csv_field(s: &str) -> String {
     }
 }
 
-fn csv_line(out: &mut dyn Write, fields: &[String]) -> std::io::Result<()> {
+fn csv_line(out: &mut (dyn Write + Send), fields: &[String]) -> std::io::Result<()> {
     let line: Vec<String> = fields.iter().map(|f| csv_field(f)).collect();
     writeln!(out, "{}", line.join(","))
 }
@@ -53,13 +53,13 @@ pub async fn export(
     name: &str,
     what: What,
     format: Format,
-    out: &mut dyn Write,
+    out: &mut (dyn Write + Send),
 ) -> Result<u64> {
     let c = store.campaign(name).await?.ok_or_else(|| {
         anyhow!("no campaign named {name:?} (list them with `cubehunt-coordinator campaign list`)")
     })?;
     let mut n = 0u64;
-    let json_item = |out: &mut dyn Write, v: &dyn erased::Json, n: u64| -> Result<()> {
+    let json_item = |out: &mut (dyn Write + Send), v: &dyn erased::Json, n: u64| -> Result<()> {
         out.write_all(if n == 0 { b"[\n" } else { b",\n" })?;
         out.write_all(&v.to_json()?)?;
         Ok(())

@@ -41,7 +41,7 @@ async fn build(bound: u64) -> Built {
         .map(|&k| plan_target(k, 0, bound, settings).unwrap())
         .collect();
     assert!(
-        plans.iter().all(|p| p.units.len() >= 4),
+        plans.iter().all(|p| p.units.len() >= 3) && plans[1].units.len() >= 10,
         "want several units per target: {:?}",
         plans.iter().map(|p| p.units.len()).collect::<Vec<_>>()
     );
@@ -178,6 +178,15 @@ async fn scalar(dir: &Path, sql: &str) -> i64 {
     let url = format!("sqlite://{}", dir.join("coordinator.db").display());
     let mut c = sqlx::SqliteConnection::connect(&url).await.unwrap();
     let v: i64 = sqlx::query_scalar(sql).fetch_one(&mut c).await.unwrap();
+    c.close().await.unwrap();
+    v
+}
+
+async fn text(dir: &Path, sql: &str) -> String {
+    use sqlx::Connection;
+    let url = format!("sqlite://{}", dir.join("coordinator.db").display());
+    let mut c = sqlx::SqliteConnection::connect(&url).await.unwrap();
+    let v: String = sqlx::query_scalar(sql).fetch_one(&mut c).await.unwrap();
     c.close().await.unwrap();
     v
 }
@@ -362,13 +371,22 @@ async fn swapped_or_corrupted_signatures_are_found() {
         scalar(&b.dir, "SELECT max(id) FROM units").await,
     );
     let r1 = scalar(&b.dir, "SELECT min(id) FROM reports").await;
+    let s1 = text(
+        &b.dir,
+        &format!("SELECT signature FROM units WHERE id = {u1}"),
+    )
+    .await;
+    let s2 = text(
+        &b.dir,
+        &format!("SELECT signature FROM units WHERE id = {u2}"),
+    )
+    .await;
     tamper(
         &b.dir,
         &[
             // Two units' coordinator signatures swapped.
-            &format!(
-                "UPDATE units SET signature = CASE id WHEN {u1} THEN (SELECT signature FROM units WHERE id = {u2}) ELSE (SELECT signature FROM units WHERE id = {u1}) END WHERE id IN ({u1}, {u2})"
-            ),
+            &format!("UPDATE units SET signature = '{s2}' WHERE id = {u1}"),
+            &format!("UPDATE units SET signature = '{s1}' WHERE id = {u2}"),
             // A report's signature corrupted consistently in the column and the stored body.
             &format!(
                 "UPDATE reports SET body = replace(body, signature, '00' || substr(signature, 3)), signature = '00' || substr(signature, 3) WHERE id = {r1}"
