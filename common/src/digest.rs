@@ -23,7 +23,13 @@ pub struct Digest {
 }
 
 impl Digest {
-    pub const ZERO: Digest = Digest { d_values: 0, classes: 0, candidates: 0, survivors: 0, hash: 0 };
+    pub const ZERO: Digest = Digest {
+        d_values: 0,
+        classes: 0,
+        candidates: 0,
+        survivors: 0,
+        hash: 0,
+    };
 
     /// Combine the digests of two disjoint pieces of work.
     pub fn combine(&self, o: &Digest) -> Digest {
@@ -83,7 +89,13 @@ impl FromStr for Digest {
         if parts.next().is_some() {
             return Err(err());
         }
-        Ok(Digest { d_values, classes, candidates, survivors, hash })
+        Ok(Digest {
+            d_values,
+            classes,
+            candidates,
+            survivors,
+            hash,
+        })
     }
 }
 
@@ -92,17 +104,36 @@ mod tests {
     use super::*;
     #[test]
     fn text_round_trip_and_rejects_garbage() {
-        let d = Digest { d_values: 3, classes: 9, candidates: 1234, survivors: 7, hash: 0xdead_beef };
+        let d = Digest {
+            d_values: 3,
+            classes: 9,
+            candidates: 1234,
+            survivors: 7,
+            hash: 0xdead_beef,
+        };
         let s = d.to_string();
         assert_eq!(s.parse::<Digest>().unwrap(), d);
-        for bad in ["", "h12-d1-r1-c1-s1", "x0000000000000000-d1-r1-c1-s1", &format!("{s}-extra")] {
+        for bad in [
+            "",
+            "h12-d1-r1-c1-s1",
+            "x0000000000000000-d1-r1-c1-s1",
+            &format!("{s}-extra"),
+        ] {
             assert!(bad.parse::<Digest>().is_err(), "{bad}");
         }
     }
     #[test]
     fn combine_is_commutative_and_wraps() {
-        let a = Digest { hash: u64::MAX, candidates: 1, ..Digest::ZERO };
-        let b = Digest { hash: 2, candidates: 5, ..Digest::ZERO };
+        let a = Digest {
+            hash: u64::MAX,
+            candidates: 1,
+            ..Digest::ZERO
+        };
+        let b = Digest {
+            hash: 2,
+            candidates: 5,
+            ..Digest::ZERO
+        };
         assert_eq!(a.combine(&b), b.combine(&a));
         assert_eq!(a.combine(&b).hash, 1);
     }

@@ -9,10 +9,16 @@ pub fn parse_u64(s: &str) -> Result<u64, String> {
         return Err(bad());
     }
     if t.bytes().all(|b| b.is_ascii_digit()) {
-        return t.parse::<u64>().map_err(|_| format!("{s:?} exceeds the largest supported value {}", u64::MAX));
+        return t
+            .parse::<u64>()
+            .map_err(|_| format!("{s:?} exceeds the largest supported value {}", u64::MAX));
     }
     let (mant, exp) = t.split_once(['e', 'E']).ok_or_else(bad)?;
-    let exp: u32 = exp.strip_prefix('+').unwrap_or(exp).parse().map_err(|_| bad())?;
+    let exp: u32 = exp
+        .strip_prefix('+')
+        .unwrap_or(exp)
+        .parse()
+        .map_err(|_| bad())?;
     let (int, frac) = mant.split_once('.').unwrap_or((mant, ""));
     if int.is_empty() && frac.is_empty()
         || !int.bytes().all(|b| b.is_ascii_digit())
@@ -24,12 +30,17 @@ pub fn parse_u64(s: &str) -> Result<u64, String> {
     if frac.len() as u32 > exp {
         return Err(format!("{s:?} is not an integer"));
     }
-    let digits = format!("{int}{frac}{}", "0".repeat((exp - frac.len() as u32) as usize));
+    let digits = format!(
+        "{int}{frac}{}",
+        "0".repeat((exp - frac.len() as u32) as usize)
+    );
     let digits = digits.trim_start_matches('0');
     if digits.is_empty() {
         return Ok(0);
     }
-    digits.parse::<u64>().map_err(|_| format!("{s:?} exceeds the largest supported value {}", u64::MAX))
+    digits
+        .parse::<u64>()
+        .map_err(|_| format!("{s:?} exceeds the largest supported value {}", u64::MAX))
 }
 
 /// Parse a signed integer (`-42`, `1e3`, `-1e3`).
@@ -42,11 +53,15 @@ pub fn parse_i64(s: &str) -> Result<i64, String> {
     let v = parse_u64(body).map_err(|e| e.replace("non-negative ", ""))?;
     if neg {
         if v > i64::MAX as u64 + 1 {
-            return Err(format!("{s:?} is below the smallest supported value {}", i64::MIN));
+            return Err(format!(
+                "{s:?} is below the smallest supported value {}",
+                i64::MIN
+            ));
         }
         Ok((v as i128).wrapping_neg() as i64)
     } else {
-        i64::try_from(v).map_err(|_| format!("{s:?} exceeds the largest supported value {}", i64::MAX))
+        i64::try_from(v)
+            .map_err(|_| format!("{s:?} exceeds the largest supported value {}", i64::MAX))
     }
 }
 
@@ -78,7 +93,18 @@ mod tests {
     }
     #[test]
     fn refuses_junk() {
-        for bad in ["", "abc", "1.5", "1e", "e5", "1e99", "-3", "18446744073709551616", "1.25e1", "0x10"] {
+        for bad in [
+            "",
+            "abc",
+            "1.5",
+            "1e",
+            "e5",
+            "1e99",
+            "-3",
+            "18446744073709551616",
+            "1.25e1",
+            "0x10",
+        ] {
             assert!(parse_u64(bad).is_err(), "{bad}");
         }
         assert!(parse_i64("9223372036854775808").is_err());

@@ -38,7 +38,10 @@ pub fn secret_to_hex(k: &SigningKey) -> String {
 }
 
 pub fn secret_from_hex(s: &str) -> Result<SigningKey, SignError> {
-    let b: [u8; 32] = hex::decode(s.trim()).ok().and_then(|v| v.try_into().ok()).ok_or(SignError::BadKey)?;
+    let b: [u8; 32] = hex::decode(s.trim())
+        .ok()
+        .and_then(|v| v.try_into().ok())
+        .ok_or(SignError::BadKey)?;
     Ok(SigningKey::from_bytes(&b))
 }
 
@@ -47,7 +50,10 @@ pub fn public_to_hex(k: &VerifyingKey) -> String {
 }
 
 pub fn public_from_hex(s: &str) -> Result<VerifyingKey, SignError> {
-    let b: [u8; 32] = hex::decode(s.trim()).ok().and_then(|v| v.try_into().ok()).ok_or(SignError::BadKey)?;
+    let b: [u8; 32] = hex::decode(s.trim())
+        .ok()
+        .and_then(|v| v.try_into().ok())
+        .ok_or(SignError::BadKey)?;
     VerifyingKey::from_bytes(&b).map_err(|_| SignError::BadKey)
 }
 
@@ -63,14 +69,22 @@ pub fn verify(key: &VerifyingKey, msg: &[u8], sig_hex: &str) -> Result<(), SignE
         .and_then(|v| v.try_into().ok())
         .ok_or(SignError::BadSignatureEncoding)?;
     let sig = Signature::from_bytes(&b);
-    key.verify_strict(msg, &sig).map_err(|_| SignError::Invalid)?;
+    key.verify_strict(msg, &sig)
+        .map_err(|_| SignError::Invalid)?;
     Ok(())
 }
 
 /// The bytes a worker signs for one HTTP request.
 pub fn request_bytes(method: &str, path: &str, time: i64, body: &[u8]) -> Vec<u8> {
     let h = Sha256::digest(body);
-    format!("cubehunt-request/1\n{}\n{}\n{}\n{}\n", method.to_ascii_uppercase(), path, time, hex::encode(h)).into_bytes()
+    format!(
+        "cubehunt-request/1\n{}\n{}\n{}\n{}\n",
+        method.to_ascii_uppercase(),
+        path,
+        time,
+        hex::encode(h)
+    )
+    .into_bytes()
 }
 
 /// SHA-256 of bytes, hex.

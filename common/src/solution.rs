@@ -32,7 +32,11 @@ impl Solution {
     }
 
     pub fn to_strings(&self) -> [String; 3] {
-        [self.0[0].to_string(), self.0[1].to_string(), self.0[2].to_string()]
+        [
+            self.0[0].to_string(),
+            self.0[1].to_string(),
+            self.0[2].to_string(),
+        ]
     }
 
     /// Parse three decimal strings (any order; result is canonical). Refuses anything that is
@@ -44,10 +48,16 @@ impl Solution {
         let mut v = [0i128; 3];
         for (slot, p) in v.iter_mut().zip(parts) {
             let digits = p.strip_prefix('-').unwrap_or(p);
-            if digits.is_empty() || digits.len() > 39 || !digits.bytes().all(|b| b.is_ascii_digit()) {
-                return Err(format!("coordinate {:?} is not a decimal integer of at most 39 digits", p.chars().take(50).collect::<String>()));
+            if digits.is_empty() || digits.len() > 39 || !digits.bytes().all(|b| b.is_ascii_digit())
+            {
+                return Err(format!(
+                    "coordinate {:?} is not a decimal integer of at most 39 digits",
+                    p.chars().take(50).collect::<String>()
+                ));
             }
-            *slot = p.parse::<i128>().map_err(|_| format!("coordinate {p:?} is out of range"))?;
+            *slot = p
+                .parse::<i128>()
+                .map_err(|_| format!("coordinate {p:?} is out of range"))?;
         }
         Ok(Solution::new(v[0], v[1], v[2]))
     }
@@ -87,7 +97,12 @@ mod tests {
     }
     #[test]
     fn parse_refuses_junk() {
-        for bad in [vec!["1", "2"], vec!["1", "2", "x"], vec!["1", "2", "+3"], vec!["1", "2", &"9".repeat(40)]] {
+        for bad in [
+            vec!["1", "2"],
+            vec!["1", "2", "x"],
+            vec!["1", "2", "+3"],
+            vec!["1", "2", &"9".repeat(40)],
+        ] {
             let v: Vec<String> = bad.iter().map(|s| s.to_string()).collect();
             assert!(Solution::parse(&v).is_err(), "{bad:?}");
         }

@@ -63,7 +63,11 @@ pub struct Rect {
 
 impl fmt::Display for Rect {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(f, "{} d∈[{},{}) |z|∈({},{}]", self.region, self.d_lo, self.d_hi, self.z_lo, self.z_hi)
+        write!(
+            f,
+            "{} d∈[{},{}) |z|∈({},{}]",
+            self.region, self.d_lo, self.d_hi, self.z_lo, self.z_hi
+        )
     }
 }
 

@@ -14,6 +14,18 @@
 
 use crate::{Digest, Rect, Region, Solution};
 
+pub mod equal;
+mod exact;
+mod factor;
+mod main_stub;
+pub mod naive_se;
+pub mod small;
+
+pub use equal::{cbrt2_convergents, z1};
+pub use factor::{factor, is_prime};
+pub use main_region::survivor_hash;
+use main_stub as main_region;
+
 /// Largest `|z|` supported: `2⁶³ − 1`.
 pub const MAX_Z: u64 = i64::MAX as u64;
 /// Largest `|k|` supported.
@@ -45,37 +57,174 @@ pub struct Target {
     pub z0: u64,
 }
 
+/// `Some(c)` with `c³ = k` when `k` is a perfect cube.
+pub fn cube_root(k: i64) -> Option<i64> {
+    exact::exact_cbrt_i128(k as i128).map(|c| c as i64)
+}
+
+/// Everything [`check_target`] checks except "k is a cube".
+pub fn check_target_allowing_cube(k: i64) -> Result<Target, KernelError> {
+    if k == 0 {
+        return Err(KernelError::Zero);
+    }
+    if k.unsigned_abs() > MAX_K as u64 {
+        return Err(KernelError::KOutOfRange(k));
+    }
+    match k.rem_euclid(9) {
+        4 => return Err(KernelError::NoSolutionsMod9 { k, r: 4 }),
+        5 => return Err(KernelError::NoSolutionsMod9 { k, r: -4 }),
+        _ => {}
+    }
+    Ok(Target { k, z0: z0(k) })
+}
+
 /// Refuse `k` that cannot or must not be searched; otherwise the target with its `Z0`.
+///
+/// Refused: `k = 0`; `|k| > 2⁴⁰`; `k ≡ ±4 (mod 9)` (no solutions: cubes are `0, ±1 mod 9`);
+/// `k` a cube (the infinite trivial family `(c, t, −t)`). A cube can still be searched for
+/// its non-trivial solutions with [`scan`], after [`check_target_allowing_cube`].
 pub fn check_target(k: i64) -> Result<Target, KernelError> {
-    let _ = k;
-    unimplemented!("kernel: check_target")
+    let t = check_target_allowing_cube(k)?;
+    if let Some(c) = cube_root(k) {
+        return Err(KernelError::Cube { k, c });
+    }
+    Ok(t)
+}
+
+/// Refuse a bound below 1 or above `2⁶³ − 1`.
+pub fn check_bound(bound: u64) -> Result<(), KernelError> {
+    if bound < 1 {
+        return Err(KernelError::BoundTooSmall(bound));
+    }
+    if bound > MAX_Z {
+        return Err(KernelError::BoundOutOfRange(bound));
+    }
+    Ok(())
 }
 
 /// `Z0 = ⌊√|k|⌋`.
 pub fn z0(k: i64) -> u64 {
-    let _ = k;
-    unimplemented!("kernel: z0")
+    k.unsigned_abs().isqrt()
 }
 
 /// For the main region: the largest `t` with `t ≤ d/α` (α = ∛2 − 1), computed exactly, so
 /// that the main region at `d` is `|z| > max(Z0, main_z_floor(d))`.
 pub fn main_z_floor(d: u64) -> u64 {
-    let _ = d;
-    unimplemented!("kernel: main_z_floor")
+    main_region::main_z_floor(d)
+}
+
+/// The least `d` with `d > α·bound`: `⌊∛2·bound⌋ − bound + 1`, exactly.
+fn main_d_end(bound: u64) -> u64 {
+    use rug::ops::Pow;
+    let b = rug::Integer::from(bound);
+    let r = (rug::Integer::from(2) * b.clone().pow(3)).root(3); // ⌊∛2·B⌋ (∛2·B is irrational)
+    (r - b + 1u32).to_u64().expect("d < 2^63")
 }
 
 /// The whole of one region of target `k` up to `bound`, as one rectangle:
 /// small `(0, Z0∧B]` (with `z = 0`), equal `(Z0, B]`, main `[1, D) × (Z0, B]` with `D` the least
 /// `d` such that `d > αB`. Returns `None` when the region is empty (e.g. `B ≤ Z0` for equal/main).
 pub fn domain(k: i64, bound: u64, region: Region) -> Option<Rect> {
-    let _ = (k, bound, region);
-    unimplemented!("kernel: domain")
+    let z0 = z0(k);
+    let bound = bound.min(MAX_Z);
+    match region {
+        Region::Small => Some(Rect {
+            region,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo: 0,
+            z_hi: z0.min(bound),
+        }),
+        Region::Equal => (bound > z0).then_some(Rect {
+            region,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo: z0,
+            z_hi: bound,
+        }),
+        Region::Main => {
+            let d_hi = main_d_end(bound);
+            (bound > z0 && d_hi > 1).then_some(Rect {
+                region,
+                d_lo: 1,
+                d_hi,
+                z_lo: z0,
+                z_hi: bound,
+            })
+        }
+    }
+}
+
+/// The non-empty regions of target `k` up to `bound`, in the order small, equal, main.
+pub fn domains(k: i64, bound: u64) -> Vec<Rect> {
+    Region::ALL
+        .iter()
+        .filter_map(|&r| domain(k, bound, r))
+        .collect()
 }
 
 /// Whether `rect` is a valid piece of its region for `k` (see [`crate::unit`] for the rules).
+///
+/// Refused: a `d` axis other than `[0, 0)` in the small and equal regions; `d_lo = 0` or
+/// `d_lo ≥ d_hi` or `d_hi > 2⁶³` in the main region; `z_lo ≥ z_hi`; `z_hi > 2⁶³ − 1`; a small
+/// rectangle reaching above `Z0`; an equal or main rectangle reaching down to `|z| ≤ Z0`; a main
+/// rectangle with no point of the region (every point has `d ≥ α|z|`; a tiling may simply
+/// leave such a tile out). And every `k` that [`check_target`] refuses.
 pub fn check_rect(k: i64, rect: &Rect) -> Result<(), KernelError> {
-    let _ = (k, rect);
-    unimplemented!("kernel: check_rect")
+    check_target(k)?;
+    check_rect_shape(k, rect)
+}
+
+/// [`check_rect`] for a `k` that may be a cube (only non-trivial solutions are searched).
+pub fn check_rect_allowing_cube(k: i64, rect: &Rect) -> Result<(), KernelError> {
+    check_target_allowing_cube(k)?;
+    check_rect_shape(k, rect)
+}
+
+fn check_rect_shape(k: i64, rect: &Rect) -> Result<(), KernelError> {
+    let bad = |why: String| {
+        Err(KernelError::BadRect {
+            k,
+            rect: *rect,
+            why,
+        })
+    };
+    let z0 = z0(k);
+    if rect.z_lo >= rect.z_hi {
+        return bad(format!(
+            "the |z| range ({}, {}] is empty: it needs z_lo < z_hi",
+            rect.z_lo, rect.z_hi
+        ));
+    }
+    if rect.z_hi > MAX_Z {
+        return bad(format!(
+            "|z| ≤ {} exceeds the supported range |z| ≤ 2^63 − 1 = {MAX_Z}",
+            rect.z_hi
+        ));
+    }
+    match rect.region {
+        Region::Small | Region::Equal if (rect.d_lo, rect.d_hi) != (0, 0) => {
+            bad(format!("the {} region has no d axis: give d = [0, 0)", rect.region))
+        }
+        Region::Small if rect.z_hi > z0 => bad(format!(
+            "the small region is |z| ≤ Z0 = ⌊√|k|⌋ = {z0}; |z| above it belongs to the equal and main regions"
+        )),
+        Region::Equal | Region::Main if rect.z_lo < z0 => bad(format!(
+            "the {} region is |z| > Z0 = ⌊√|k|⌋ = {z0}, so z_lo must be at least {z0}; smaller |z| belong to the small region",
+            rect.region
+        )),
+        Region::Main if rect.d_lo == 0 => bad("the main region has d ≥ 1: d_lo must be at least 1".into()),
+        Region::Main if rect.d_lo >= rect.d_hi => {
+            bad(format!("the d range [{}, {}) is empty: it needs d_lo < d_hi", rect.d_lo, rect.d_hi))
+        }
+        Region::Main if rect.d_hi > 1 << 63 => bad(format!("d_hi = {} exceeds the supported d_hi ≤ 2^63", rect.d_hi)),
+        Region::Main if main_z_floor(rect.d_lo) >= rect.z_hi => bad(format!(
+            "no point lies in the main region: it needs |z| > d/α (α = ∛2 − 1), but d ≥ {} means |z| > {} ≥ z_hi",
+            rect.d_lo,
+            main_z_floor(rect.d_lo)
+        )),
+        _ => Ok(()),
+    }
 }
 
 /// What a scan found.
@@ -91,20 +240,121 @@ pub type Progress<'a> = &'a (dyn Fn(u64) + Sync);
 
 /// Search one rectangle on `threads` threads (0 = all cores). The digest does not depend on
 /// `threads`. Every solution is verified in big integers before it is returned.
-pub fn scan(k: i64, rect: &Rect, threads: usize, progress: Progress) -> Result<ScanOutput, KernelError> {
-    let _ = (k, rect, threads, progress);
-    unimplemented!("kernel: scan")
+///
+/// A negative `k` is searched as `−k` with every coordinate negated (the digest is the one of
+/// `−k`). A cube `k = c³` is accepted here and only its non-trivial solutions are returned:
+/// a triple with two coordinates summing to 0 (the family `(c, t, −t)`) is dropped, and the
+/// small region skips `z = c`, where `k − z³ = 0`. For any other `k` no solution has such a
+/// pair (the third cube would be `k`), so nothing else is dropped.
+pub fn scan(
+    k: i64,
+    rect: &Rect,
+    threads: usize,
+    progress: Progress,
+) -> Result<ScanOutput, KernelError> {
+    check_rect_allowing_cube(k, rect)?;
+    let ak = k.abs();
+    let run = || match rect.region {
+        Region::Small => small::scan_small(ak, rect, progress),
+        Region::Equal => equal::scan_equal(ak, rect, progress),
+        Region::Main => main_region::scan_main(ak, rect, threads, progress),
+    };
+    let (digest, found) = if threads == 0 || rect.region == Region::Main {
+        run()
+    } else {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .expect("a thread pool can be built")
+            .install(run)
+    };
+    let sign = k.signum() as i128;
+    let mut solutions: Vec<Solution> = found
+        .into_iter()
+        .map(|s| Solution::new(sign * s.0[0], sign * s.0[1], sign * s.0[2]))
+        .filter(|s| {
+            let [a, b, c] = s.0;
+            a + b != 0 && a + c != 0 && b + c != 0
+        })
+        .collect();
+    solutions.sort_unstable();
+    solutions.dedup();
+    for s in &solutions {
+        // A failure here is a kernel defect; never report an unverified triple.
+        assert!(
+            s.verify(k),
+            "kernel produced {s}, which is not a solution for k = {k}"
+        );
+    }
+    Ok(ScanOutput { digest, solutions })
+}
+
+/// Every region of `k` up to `bound`: the combined digest and all solutions (sorted, distinct).
+pub fn solve(
+    k: i64,
+    bound: u64,
+    threads: usize,
+    progress: Progress,
+) -> Result<ScanOutput, KernelError> {
+    check_bound(bound)?;
+    check_target_allowing_cube(k)?;
+    let mut digest = Digest::ZERO;
+    let mut solutions = Vec::new();
+    for rect in domains(k, bound) {
+        let out = scan(k, &rect, threads, progress)?;
+        digest.add_assign(&out.digest);
+        solutions.extend(out.solutions);
+    }
+    solutions.sort_unstable();
+    solutions.dedup();
+    Ok(ScanOutput { digest, solutions })
 }
 
 /// Candidates of a rectangle, computed without doing the work; equals `scan(..).digest.candidates`.
 pub fn candidates(k: i64, rect: &Rect) -> u64 {
-    let _ = (k, rect);
-    unimplemented!("kernel: candidates")
+    let ak = k.abs();
+    match rect.region {
+        Region::Small => small::candidates_small(rect),
+        Region::Equal => equal::candidates_equal(ak, rect),
+        Region::Main => main_region::candidates_main(ak, rect),
+    }
 }
 
 /// Cost model: estimated seconds for one reference core to scan `rect` (cheap to evaluate,
 /// even for rectangles with `d` up to 10¹⁵; calibrated by the kernel benchmark).
 pub fn estimate_seconds(k: i64, rect: &Rect) -> f64 {
-    let _ = (k, rect);
-    unimplemented!("kernel: estimate_seconds")
+    let ak = k.abs();
+    match rect.region {
+        Region::Small => small::estimate_seconds_small(ak, rect),
+        Region::Equal => equal::estimate_seconds_equal(ak, rect),
+        Region::Main => main_region::estimate_seconds_main(ak, rect),
+    }
+}
+
+/// A quick estimate of [`candidates`], for progress displays: exact for the small and equal
+/// regions; for the main region `Σ_d 2ρ(d)·(z_hi − max(z_lo, d/α))/d` with the mean number of
+/// cube roots `ρ` taken as 1, integrated in closed form on geometric pieces of the `d` range.
+pub fn estimate_candidates(k: i64, rect: &Rect) -> f64 {
+    if rect.region != Region::Main {
+        return candidates(k, rect) as f64;
+    }
+    let inv_alpha = 1.0 / (2f64.cbrt() - 1.0);
+    let (zl, zh) = (rect.z_lo as f64, rect.z_hi as f64);
+    let a = rect.d_lo.max(1) as f64;
+    let b = (rect.d_hi as f64).min(zh / inv_alpha + 1.0);
+    if b <= a {
+        return 0.0;
+    }
+    let pieces = 64;
+    let ratio = (b / a).powf(1.0 / pieces as f64);
+    let mut total = 0.0;
+    let mut x = a;
+    for _ in 0..pieces {
+        let y = (x * ratio).min(b);
+        let dm = (x * y).sqrt();
+        let span = (zh - zl.max(dm * inv_alpha)).max(0.0);
+        total += 2.0 * (y - x) * span / dm;
+        x = y;
+    }
+    total
 }
