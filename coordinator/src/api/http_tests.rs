@@ -1,0 +1,882 @@
+//! HTTP-level tests of the service, driven through `tower::ServiceExt::oneshot` on the real
+//! router over a real store in a temporary directory. Units are planned by hand here (the
+//! planner has its own tests), so these tests do not depend on the kernel's cost model.
+
+use super::*;
+use crate::config::ServiceConfig;
+use crate::store::{NewCampaign, PlannedUnit, Store, TargetPlan};
+use axum::body::Body;
+use axum::http::{Request, StatusCode};
+use cubehunt_common::protocol::*;
+use cubehunt_common::report::{Report, SignedReport};
+use cubehunt_common::sign::{self, HDR_SIGNATURE, HDR_TIME, HDR_WORKER};
+use cubehunt_common::{Digest, Rect, Region, Solution, KERNEL_VERSION};
+use http_body_util::BodyExt;
+use serde_json::{json, Value};
+use tower::ServiceExt;
+
+const TOKEN: &str = "0123456789abcdef0123456789abcdef0123456789abcdef0123456789abcdef";
+
+struct Env {
+    st: Shared,
+    _dir: tempfile::TempDir,
+}
+
+struct W {
+    id: i64,
+    key: sign::SecretKey,
+}
+
+async fn env(config: ServiceConfig) -> Env {
+    let dir = tempfile::tempdir().unwrap();
+    let store = Store::open(&dir.path().join("c.db"), true).await.unwrap();
+    let st = AppState::new(store, sign::generate(), TOKEN.into(), config);
+    Env { st, _dir: dir }
+}
+
+impl Env {
+    async fn call(&self, req: Request<Body>) -> (StatusCode, Value) {
+        let resp = router(self.st.clone()).oneshot(req).await.unwrap();
+        let status = resp.status();
+        let bytes = resp.into_body().collect().await.unwrap().to_bytes();
+        let v = serde_json::from_slice(&bytes)
+            .unwrap_or_else(|_| Value::String(String::from_utf8_lossy(&bytes).into_owned()));
+        (status, v)
+    }
+
+    async fn get(&self, path: &str) -> (StatusCode, Value) {
+        self.call(Request::get(path).body(Body::empty()).unwrap())
+            .await
+    }
+
+    async fn admin(
+        &self,
+        method: &str,
+        path: &str,
+        token: Option<&str>,
+        body: Value,
+    ) -> (StatusCode, Value) {
+        let mut b = Request::builder()
+            .method(method)
+            .uri(path)
+            .header("content-type", "application/json");
+        if let Some(t) = token {
+            b = b.header("authorization", format!("Bearer {t}"));
+        }
+        self.call(b.body(Body::from(body.to_string())).unwrap())
+            .await
+    }
+
+    /// A campaign with one target and hand-made rectangles.
+    async fn seed(&self, name: &str, k: i64, rects: &[Rect]) {
+        let plan = TargetPlan {
+            k,
+            z0: 1,
+            units: rects
+                .iter()
+                .map(|r| PlannedUnit {
+                    rect: *r,
+                    cost_us: 1_000_000,
+                })
+                .collect(),
+        };
+        let key = self.st.key.clone();
+        let signer = move |s: &cubehunt_common::UnitSpec| sign::sign(&key, &s.canonical_bytes());
+        self.st
+            .store
+            .create_campaign(
+                &NewCampaign {
+                    name: name.into(),
+                    kernel: KERNEL_VERSION.into(),
+                    bound: 100,
+                    unit_seconds: 1.0,
+                },
+                &[plan],
+                &signer,
+                crate::now(),
+            )
+            .await
+            .unwrap();
+    }
+
+    async fn signed_raw(
+        &self,
+        worker_id: i64,
+        key: &sign::SecretKey,
+        path: &str,
+        body: Vec<u8>,
+        time: i64,
+    ) -> (StatusCode, Value) {
+        let sig = sign::sign(key, &sign::request_bytes("POST", path, time, &body));
+        let req = Request::post(path)
+            .header("content-type", "application/json")
+            .header(HDR_WORKER, worker_id.to_string())
+            .header(HDR_TIME, time.to_string())
+            .header(HDR_SIGNATURE, sig)
+            .body(Body::from(body))
+            .unwrap();
+        self.call(req).await
+    }
+
+    async fn signed(&self, w: &W, path: &str, body: Value) -> (StatusCode, Value) {
+        self.signed_raw(
+            w.id,
+            &w.key,
+            path,
+            body.to_string().into_bytes(),
+            crate::now(),
+        )
+        .await
+    }
+
+    async fn enrol_kernel(&self, owner: &str, kernel: &str) -> W {
+        let key = sign::generate();
+        let body = json!({"owner": owner, "public_key": sign::public_to_hex(&key.verifying_key()), "kernel": kernel, "threads": 2, "label": "test-host"});
+        let (s, v) = self
+            .signed_raw(
+                0,
+                &key,
+                "/api/v1/enrol",
+                body.to_string().into_bytes(),
+                crate::now(),
+            )
+            .await;
+        assert_eq!(s, StatusCode::OK, "{v}");
+        assert_eq!(v["coordinator_key"], self.st.public_key);
+        W {
+            id: v["worker_id"].as_i64().unwrap(),
+            key,
+        }
+    }
+
+    async fn enrol(&self, owner: &str) -> W {
+        self.enrol_kernel(owner, KERNEL_VERSION).await
+    }
+
+    async fn lease(&self, w: &W) -> Option<LeaseGrant> {
+        let (s, v) = self.signed(w, "/api/v1/lease", json!({"threads": 2})).await;
+        assert_eq!(s, StatusCode::OK, "{v}");
+        serde_json::from_value::<LeaseResponse>(v).unwrap().lease
+    }
+
+    async fn report(
+        &self,
+        w: &W,
+        g: &LeaseGrant,
+        digest: Digest,
+        solutions: Vec<Solution>,
+    ) -> (StatusCode, Value) {
+        let sr = signed_report(w, g, digest, solutions);
+        self.signed(
+            w,
+            &format!("/api/v1/lease/{}/report", g.lease_id),
+            serde_json::to_value(&sr).unwrap(),
+        )
+        .await
+    }
+
+    async fn worker_view(&self, id: i64) -> Value {
+        let (_, v) = self.get("/api/v1/workers").await;
+        v.as_array()
+            .unwrap()
+            .iter()
+            .find(|w| w["id"] == id)
+            .unwrap()
+            .clone()
+    }
+}
+
+fn signed_report(w: &W, g: &LeaseGrant, digest: Digest, solutions: Vec<Solution>) -> SignedReport {
+    let u = &g.unit.unit;
+    let report = Report {
+        lease_id: g.lease_id,
+        unit_id: u.unit_id,
+        worker_id: w.id,
+        kernel: u.kernel.clone(),
+        k: u.k,
+        rect: u.rect,
+        digest,
+        solutions,
+        elapsed_s: 1.0,
+    };
+    let signature = sign::sign(&w.key, &report.canonical_bytes());
+    SignedReport { report, signature }
+}
+
+fn dg(h: u64) -> Digest {
+    Digest {
+        d_values: 3,
+        classes: 5,
+        candidates: 100,
+        survivors: 7,
+        hash: h,
+    }
+}
+
+fn main_rect(d_lo: u64) -> Rect {
+    Rect {
+        region: Region::Main,
+        d_lo,
+        d_hi: d_lo + 1,
+        z_lo: 10,
+        z_hi: 100,
+    }
+}
+
+#[tokio::test]
+async fn admin_endpoints_refuse_missing_and_wrong_tokens() {
+    let e = env(ServiceConfig::default()).await;
+    let create = json!({"name": "x", "ks": [33], "bound": "1e3"});
+    for token in [None, Some("wrong"), Some(&TOKEN[..63])] {
+        let (s, v) = e
+            .admin("POST", "/api/v1/admin/campaigns", token, create.clone())
+            .await;
+        assert_eq!(s, StatusCode::UNAUTHORIZED, "{v}");
+        assert!(
+            v["error"].as_str().unwrap().starts_with("admin_token"),
+            "{v}"
+        );
+        let (s, _) = e
+            .admin("GET", "/api/v1/admin/campaigns", token, json!({}))
+            .await;
+        assert_eq!(s, StatusCode::UNAUTHORIZED);
+        let (s, _) = e
+            .admin("POST", "/api/v1/admin/campaigns/x/pause", token, json!({}))
+            .await;
+        assert_eq!(s, StatusCode::UNAUTHORIZED);
+    }
+    let (s, v) = e
+        .admin("GET", "/api/v1/admin/campaigns", Some(TOKEN), json!({}))
+        .await;
+    assert_eq!(s, StatusCode::OK, "{v}");
+    assert_eq!(v, json!([]));
+    // Bad names are refused before any planning.
+    let (s, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns",
+            Some(TOKEN),
+            json!({"name": "no spaces", "ks": [33], "bound": 10}),
+        )
+        .await;
+    assert_eq!(s, StatusCode::BAD_REQUEST, "{v}");
+    assert_eq!(v["error"], "bad_name");
+}
+
+#[tokio::test]
+async fn two_agreeing_owners_settle_and_the_campaign_completes() {
+    let e = env(ServiceConfig::default()).await;
+    // 3 = 1³ + 1³ + 1³ (common practice, no source): z = 1 lies in the small piece (0, 1].
+    e.seed(
+        "club",
+        3,
+        &[Rect {
+            region: Region::Small,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo: 0,
+            z_hi: 1,
+        }],
+    )
+    .await;
+    let (a, b) = (e.enrol("alice").await, e.enrol("bob").await);
+    let ga = e.lease(&a).await.expect("a unit for alice");
+    let gb = e.lease(&b).await.expect("the same unit for bob");
+    assert_eq!(ga.unit.unit.unit_id, gb.unit.unit.unit_id);
+    // The unit is signed by the coordinator.
+    let pk = sign::public_from_hex(&e.st.public_key).unwrap();
+    sign::verify(&pk, &ga.unit.unit.canonical_bytes(), &ga.unit.signature).unwrap();
+    let sol = vec![Solution::new(1, 1, 1)];
+    let (s, v) = e.report(&a, &ga, dg(1), sol.clone()).await;
+    assert_eq!(
+        (s, v["accepted"].clone(), v["unit_state"].clone()),
+        (StatusCode::OK, json!(true), json!("open")),
+        "{v}"
+    );
+    let (_, c) = e.get("/api/v1/campaigns/club").await;
+    assert_eq!(c["state"], "active");
+    let (s, v) = e.report(&b, &gb, dg(1), sol.clone()).await;
+    assert_eq!(
+        (s, v["unit_state"].clone()),
+        (StatusCode::OK, json!("settled")),
+        "{v}"
+    );
+    let (_, c) = e.get("/api/v1/campaigns/club").await;
+    assert_eq!(c["state"], "complete", "{c}");
+    assert_eq!(c["solutions"], json!([["1", "1", "1"]]));
+    assert_eq!(c["units"]["settled"], 1);
+    assert_eq!(c["fraction"], 1.0);
+    assert_eq!(e.worker_view(a.id).await["units_settled"], 1);
+    let (_, sols) = e.get("/api/v1/campaigns/club/solutions").await;
+    assert_eq!(sols[0]["k"], 3);
+    // Nothing more to hand out.
+    assert!(e.lease(&e.enrol("carol").await).await.is_none());
+}
+
+#[tokio::test]
+async fn one_owner_never_gets_both_leases_of_a_unit() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed("c", 33, &[main_rect(1)]).await;
+    let (a1, a2) = (e.enrol("alice").await, e.enrol("alice").await);
+    assert_ne!(a1.id, a2.id);
+    assert!(e.lease(&a1).await.is_some());
+    assert!(
+        e.lease(&a2).await.is_none(),
+        "second machine of the same owner"
+    );
+    assert!(e.lease(&a1).await.is_none(), "the same worker again");
+    assert!(e.lease(&e.enrol("bob").await).await.is_some());
+    assert!(
+        e.lease(&e.enrol("carol").await).await.is_none(),
+        "two leases are enough"
+    );
+}
+
+#[tokio::test]
+async fn prefers_units_that_already_have_a_report() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed("c", 33, &[main_rect(1), main_rect(2), main_rect(3)])
+        .await;
+    let a = e.enrol("alice").await;
+    let g1 = e.lease(&a).await.unwrap();
+    let g2 = e.lease(&a).await.unwrap();
+    assert_eq!(
+        (g1.unit.unit.rect.d_lo, g2.unit.unit.rect.d_lo),
+        (1, 2),
+        "planned order"
+    );
+    e.report(&a, &g2, dg(1), vec![]).await;
+    let b = e.enrol("bob").await;
+    assert_eq!(
+        e.lease(&b).await.unwrap().unit.unit.unit_id,
+        g2.unit.unit.unit_id,
+        "the unit with a report first"
+    );
+}
+
+#[tokio::test]
+async fn wrong_digest_is_outvoted_counted_and_quarantined() {
+    let e = env(ServiceConfig {
+        quarantine_after: 2,
+        ..ServiceConfig::default()
+    })
+    .await;
+    e.seed("c", 33, &[main_rect(1), main_rect(2), main_rect(3)])
+        .await;
+    let (a, b, c) = (
+        e.enrol("alice").await,
+        e.enrol("bob").await,
+        e.enrol("carol").await,
+    );
+    for round in 0..2 {
+        let ga = e.lease(&a).await.unwrap();
+        let gb = e.lease(&b).await.unwrap();
+        assert_eq!(ga.unit.unit.unit_id, gb.unit.unit.unit_id);
+        let (_, v) = e.report(&a, &ga, dg(666), vec![]).await;
+        assert_eq!(v["unit_state"], "open");
+        let (_, v) = e.report(&b, &gb, dg(42), vec![]).await;
+        assert_eq!(v["unit_state"], "disputed", "{v}");
+        // The dispute asks for a third owner.
+        let gc = loop {
+            let g = e.lease(&c).await.expect("carol gets the disputed unit");
+            if g.unit.unit.unit_id == ga.unit.unit.unit_id {
+                break g;
+            }
+        };
+        let (_, v) = e.report(&c, &gc, dg(42), vec![]).await;
+        assert_eq!(v["unit_state"], "settled", "{v}");
+        let u =
+            e.st.store
+                .unit(ga.unit.unit.unit_id)
+                .await
+                .unwrap()
+                .unwrap();
+        assert_eq!(u.state, "settled");
+        let reps = e.st.store.unit_reports(u.id).await.unwrap();
+        let verdicts: Vec<(i64, String)> = reps.iter().map(|r| (r.1, r.5.clone())).collect();
+        assert_eq!(
+            verdicts,
+            vec![
+                (a.id, "disagree".into()),
+                (b.id, "agree".into()),
+                (c.id, "agree".into())
+            ]
+        );
+        let wa = e.worker_view(a.id).await;
+        assert_eq!(wa["errors"], round + 1);
+        assert_eq!(e.worker_view(b.id).await["errors"], 0);
+        // Release what carol may still hold so the next round starts clean.
+        for l in e.st.store.unit_leases(u.id).await.unwrap() {
+            assert_ne!(l.state, "active");
+        }
+    }
+    assert_eq!(e.worker_view(a.id).await["quarantined"], true);
+    let (s, v) = e.signed(&a, "/api/v1/lease", json!({})).await;
+    assert_eq!(s, StatusCode::FORBIDDEN, "{v}");
+    assert_eq!(v["error"], "quarantined");
+}
+
+#[tokio::test]
+async fn forged_and_misplaced_solutions_are_refused_and_counted() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed(
+        "c",
+        3,
+        &[Rect {
+            region: Region::Small,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo: 1,
+            z_hi: 3,
+        }],
+    )
+    .await;
+    let a = e.enrol("alice").await;
+    let g = e.lease(&a).await.unwrap();
+    // 1 + 8 + 27 ≠ 3.
+    let (s, v) = e.report(&a, &g, dg(1), vec![Solution::new(1, 2, 3)]).await;
+    assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY, "{v}");
+    assert_eq!(v["error"], "false_solution");
+    assert_eq!(e.worker_view(a.id).await["errors"], 1);
+    // Sending it again changes nothing.
+    let (s, _) = e.report(&a, &g, dg(1), vec![Solution::new(1, 2, 3)]).await;
+    assert_eq!(s, StatusCode::CONFLICT);
+    assert_eq!(e.worker_view(a.id).await["errors"], 1);
+    // A true solution outside the unit: 3 = 1³ + 1³ + 1³ has |z| = 1, the unit is (1, 3].
+    let b = e.enrol("bob").await;
+    let gb = e.lease(&b).await.unwrap();
+    let (s, v) = e.report(&b, &gb, dg(1), vec![Solution::new(1, 1, 1)]).await;
+    assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY, "{v}");
+    assert!(v["message"].as_str().unwrap().contains("outside"), "{v}");
+    assert_eq!(e.worker_view(b.id).await["errors"], 1);
+    let (_, c) = e.get("/api/v1/campaigns/c").await;
+    assert_eq!(c["solutions"], json!([]));
+    // 3 = 4³ + 4³ + (−5)³ (common practice, no source) is true and has |z| = 4 ∉ (1, 3]:
+    // refused too, so the alice's refusal was not about the count.
+    let carol = e.enrol("carol").await;
+    let gc = e.lease(&carol).await.unwrap();
+    assert!(Solution::new(4, 4, -5).verify(3));
+    let (s, _) = e
+        .report(&carol, &gc, dg(1), vec![Solution::new(4, 4, -5)])
+        .await;
+    assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY);
+}
+
+#[tokio::test]
+async fn reports_for_someone_elses_lease_or_with_altered_fields_are_refused() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed("c", 33, &[main_rect(1)]).await;
+    let (a, b) = (e.enrol("alice").await, e.enrol("bob").await);
+    let ga = e.lease(&a).await.unwrap();
+    // Bob reports alice's lease (signed by bob, claiming to be bob).
+    let mut sr = signed_report(&b, &ga, dg(1), vec![]);
+    sr.report.worker_id = b.id;
+    sr.signature = sign::sign(&b.key, &sr.report.canonical_bytes());
+    let (s, v) = e
+        .signed(
+            &b,
+            &format!("/api/v1/lease/{}/report", ga.lease_id),
+            serde_json::to_value(&sr).unwrap(),
+        )
+        .await;
+    assert_eq!(s, StatusCode::FORBIDDEN, "{v}");
+    assert_eq!(v["error"], "not_your_lease");
+    // Alice claims another rectangle than the one leased.
+    let mut sr = signed_report(&a, &ga, dg(1), vec![]);
+    sr.report.rect.d_hi += 1;
+    sr.signature = sign::sign(&a.key, &sr.report.canonical_bytes());
+    let (s, v) = e
+        .signed(
+            &a,
+            &format!("/api/v1/lease/{}/report", ga.lease_id),
+            serde_json::to_value(&sr).unwrap(),
+        )
+        .await;
+    assert_eq!(
+        (s, v["error"].clone()),
+        (StatusCode::BAD_REQUEST, json!("report_mismatch")),
+        "{v}"
+    );
+    // A report signature that does not verify.
+    let mut sr = signed_report(&a, &ga, dg(1), vec![]);
+    sr.report.digest.hash ^= 1;
+    let (s, v) = e
+        .signed(
+            &a,
+            &format!("/api/v1/lease/{}/report", ga.lease_id),
+            serde_json::to_value(&sr).unwrap(),
+        )
+        .await;
+    assert_eq!(
+        (s, v["error"].clone()),
+        (StatusCode::UNAUTHORIZED, json!("bad_report_signature")),
+        "{v}"
+    );
+    // Nothing was stored.
+    assert!(e
+        .st
+        .store
+        .unit_reports(ga.unit.unit.unit_id)
+        .await
+        .unwrap()
+        .is_empty());
+}
+
+#[tokio::test]
+async fn a_replayed_report_changes_nothing() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed("c", 33, &[main_rect(1)]).await;
+    let a = e.enrol("alice").await;
+    let g = e.lease(&a).await.unwrap();
+    let sr = serde_json::to_value(signed_report(&a, &g, dg(9), vec![])).unwrap();
+    let path = format!("/api/v1/lease/{}/report", g.lease_id);
+    let (s, v) = e.signed(&a, &path, sr.clone()).await;
+    assert_eq!((s, v["accepted"].clone()), (StatusCode::OK, json!(true)));
+    let before = (
+        e.worker_view(a.id).await,
+        e.st.store.unit_reports(g.unit.unit.unit_id).await.unwrap(),
+    );
+    let (s, v) = e.signed(&a, &path, sr).await;
+    assert_eq!(
+        (s, v["accepted"].clone(), v["unit_state"].clone()),
+        (StatusCode::OK, json!(false), json!("open")),
+        "{v}"
+    );
+    let after = (
+        e.worker_view(a.id).await,
+        e.st.store.unit_reports(g.unit.unit.unit_id).await.unwrap(),
+    );
+    assert_eq!(before.0["reports"], after.0["reports"]);
+    assert_eq!(before.1, after.1);
+}
+
+#[tokio::test]
+async fn expired_leases_are_handed_out_again() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed("c", 33, &[main_rect(1)]).await;
+    let (a, b, c) = (
+        e.enrol("alice").await,
+        e.enrol("bob").await,
+        e.enrol("carol").await,
+    );
+    let ga = e.lease(&a).await.unwrap();
+    assert!(e.lease(&b).await.is_some());
+    assert!(e.lease(&c).await.is_none());
+    // Heartbeats extend a held lease.
+    let (s, v) = e
+        .signed(
+            &a,
+            &format!("/api/v1/lease/{}/heartbeat", ga.lease_id),
+            json!({"progress": 0.5}),
+        )
+        .await;
+    assert_eq!((s, v["keep_going"].clone()), (StatusCode::OK, json!(true)));
+    assert!(v["deadline"].as_i64().unwrap() >= ga.deadline);
+    // Time passes beyond every deadline: the sweep expires both leases.
+    assert_eq!(
+        e.st.store
+            .expire_leases(crate::now() + 30 * 86400)
+            .await
+            .unwrap(),
+        2
+    );
+    let gc = e.lease(&c).await.expect("carol gets the expired unit");
+    assert_eq!(gc.unit.unit.unit_id, ga.unit.unit.unit_id);
+    // Alice's heartbeat now says stop; her late report still counts (the work was leased).
+    let (_, v) = e
+        .signed(
+            &a,
+            &format!("/api/v1/lease/{}/heartbeat", ga.lease_id),
+            json!({}),
+        )
+        .await;
+    assert_eq!(v["keep_going"], false);
+    let (s, v) = e.report(&a, &ga, dg(5), vec![]).await;
+    assert_eq!(
+        (s, v["accepted"].clone()),
+        (StatusCode::OK, json!(true)),
+        "{v}"
+    );
+    let (_, v) = e.report(&c, &gc, dg(5), vec![]).await;
+    assert_eq!(v["unit_state"], "settled");
+}
+
+#[tokio::test]
+async fn pause_and_cancel_stop_leasing_and_resume_restarts_it() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed("c", 33, &[main_rect(1), main_rect(2)]).await;
+    let a = e.enrol("alice").await;
+    let g = e.lease(&a).await.unwrap();
+    let (s, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns/c/pause",
+            Some(TOKEN),
+            json!({}),
+        )
+        .await;
+    assert_eq!(
+        (s, v["state"].clone()),
+        (StatusCode::OK, json!("paused")),
+        "{v}"
+    );
+    assert!(e.lease(&a).await.is_none());
+    let (_, v) = e
+        .signed(
+            &a,
+            &format!("/api/v1/lease/{}/heartbeat", g.lease_id),
+            json!({}),
+        )
+        .await;
+    assert_eq!(v["keep_going"], false);
+    let (_, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns/c/resume",
+            Some(TOKEN),
+            json!({}),
+        )
+        .await;
+    assert_eq!(v["state"], "active");
+    assert!(e.lease(&a).await.is_some());
+    let (_, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns/c/cancel",
+            Some(TOKEN),
+            json!({}),
+        )
+        .await;
+    assert_eq!(v["state"], "cancelled");
+    assert!(e.lease(&e.enrol("bob").await).await.is_none());
+    let (s, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns/c/resume",
+            Some(TOKEN),
+            json!({}),
+        )
+        .await;
+    assert_eq!(
+        (s, v["error"].clone()),
+        (StatusCode::CONFLICT, json!("campaign_cancelled"))
+    );
+    let (s, _) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns/c/explode",
+            Some(TOKEN),
+            json!({}),
+        )
+        .await;
+    assert_eq!(s, StatusCode::NOT_FOUND);
+}
+
+#[tokio::test]
+async fn units_go_only_to_workers_of_the_pinned_kernel() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed("c", 33, &[main_rect(1)]).await;
+    let old = e.enrol_kernel("alice", "cubehunt-kernel/0").await;
+    assert!(e.lease(&old).await.is_none());
+    assert!(e.lease(&e.enrol("bob").await).await.is_some());
+}
+
+#[tokio::test]
+async fn release_gives_the_unit_back() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed("c", 33, &[main_rect(1)]).await;
+    let (a, b, c) = (
+        e.enrol("alice").await,
+        e.enrol("bob").await,
+        e.enrol("carol").await,
+    );
+    let ga = e.lease(&a).await.unwrap();
+    e.lease(&b).await.unwrap();
+    let (s, v) = e
+        .signed(
+            &a,
+            &format!("/api/v1/lease/{}/release", ga.lease_id),
+            json!({}),
+        )
+        .await;
+    assert_eq!((s, v["released"].clone()), (StatusCode::OK, json!(true)));
+    assert!(e.lease(&c).await.is_some());
+    let (s, v) = e.report(&a, &ga, dg(1), vec![]).await;
+    assert_eq!(
+        (s, v["error"].clone()),
+        (StatusCode::CONFLICT, json!("lease_released"))
+    );
+    // Someone else's lease cannot be released.
+    let (s, _) = e
+        .signed(
+            &c,
+            &format!("/api/v1/lease/{}/release", ga.lease_id),
+            json!({}),
+        )
+        .await;
+    assert_eq!(s, StatusCode::FORBIDDEN);
+}
+
+#[tokio::test]
+async fn signed_requests_are_checked() {
+    let e = env(ServiceConfig::default()).await;
+    let a = e.enrol("alice").await;
+    let body = b"{}".to_vec();
+    // Wrong key.
+    let (s, v) = e
+        .signed_raw(
+            a.id,
+            &sign::generate(),
+            "/api/v1/lease",
+            body.clone(),
+            crate::now(),
+        )
+        .await;
+    assert_eq!(
+        (s, v["error"].clone()),
+        (StatusCode::UNAUTHORIZED, json!("bad_signature"))
+    );
+    // Stale time.
+    let (s, v) = e
+        .signed_raw(
+            a.id,
+            &a.key,
+            "/api/v1/lease",
+            body.clone(),
+            crate::now() - 3600,
+        )
+        .await;
+    assert_eq!(
+        (s, v["error"].clone()),
+        (StatusCode::UNAUTHORIZED, json!("clock_skew"))
+    );
+    // Unknown worker.
+    let (s, v) = e
+        .signed_raw(999, &a.key, "/api/v1/lease", body.clone(), crate::now())
+        .await;
+    assert_eq!(
+        (s, v["error"].clone()),
+        (StatusCode::UNAUTHORIZED, json!("unknown_worker"))
+    );
+    // Signature for another path.
+    let sig = sign::sign(
+        &a.key,
+        &sign::request_bytes("POST", "/api/v1/enrol", crate::now(), &body),
+    );
+    let req = Request::post("/api/v1/lease")
+        .header(HDR_WORKER, a.id.to_string())
+        .header(HDR_TIME, crate::now().to_string())
+        .header(HDR_SIGNATURE, sig)
+        .body(Body::from(body.clone()))
+        .unwrap();
+    assert_eq!(e.call(req).await.0, StatusCode::UNAUTHORIZED);
+    // No headers at all.
+    let (s, _) = e
+        .call(
+            Request::post("/api/v1/lease")
+                .body(Body::from(body))
+                .unwrap(),
+        )
+        .await;
+    assert_eq!(s, StatusCode::UNAUTHORIZED);
+    // Enrolment signed by another key than the one enrolled, and a bad owner name.
+    let key = sign::generate();
+    let other = sign::generate();
+    let eb = json!({"owner": "bob", "public_key": sign::public_to_hex(&key.verifying_key()), "kernel": KERNEL_VERSION, "threads": 1});
+    let (s, _) = e
+        .signed_raw(
+            0,
+            &other,
+            "/api/v1/enrol",
+            eb.to_string().into_bytes(),
+            crate::now(),
+        )
+        .await;
+    assert_eq!(s, StatusCode::UNAUTHORIZED);
+    let eb = json!({"owner": "bob smith", "public_key": sign::public_to_hex(&key.verifying_key()), "kernel": KERNEL_VERSION, "threads": 1});
+    let (s, v) = e
+        .signed_raw(
+            0,
+            &key,
+            "/api/v1/enrol",
+            eb.to_string().into_bytes(),
+            crate::now(),
+        )
+        .await;
+    assert_eq!(
+        (s, v["error"].clone()),
+        (StatusCode::BAD_REQUEST, json!("bad_owner"))
+    );
+    // The same key cannot move to another owner.
+    let eb = json!({"owner": "mallory", "public_key": sign::public_to_hex(&a.key.verifying_key()), "kernel": KERNEL_VERSION, "threads": 1});
+    let (s, _) = e
+        .signed_raw(
+            0,
+            &a.key,
+            "/api/v1/enrol",
+            eb.to_string().into_bytes(),
+            crate::now(),
+        )
+        .await;
+    assert_eq!(s, StatusCode::CONFLICT);
+}
+
+#[tokio::test]
+async fn oversized_bodies_are_refused() {
+    let e = env(ServiceConfig::default()).await;
+    let a = e.enrol("alice").await;
+    let big = vec![b' '; MAX_BODY_BYTES + 10];
+    let (s, v) = e
+        .signed_raw(a.id, &a.key, "/api/v1/lease", big, crate::now())
+        .await;
+    assert_eq!(s, StatusCode::PAYLOAD_TOO_LARGE, "{v}");
+    assert_eq!(v["error"], "body_too_large");
+}
+
+#[tokio::test]
+async fn monitoring_metrics_and_openapi_agree_with_the_routes() {
+    let e = env(ServiceConfig::default()).await;
+    e.seed("c", 33, &[main_rect(1)]).await;
+    let (s, v) = e.get("/healthz").await;
+    assert_eq!((s, v["ok"].clone()), (StatusCode::OK, json!(true)));
+    let (s, m) = e.get("/metrics").await;
+    assert_eq!(s, StatusCode::OK);
+    let m = m.as_str().unwrap().to_string();
+    assert!(
+        m.contains("cubehunt_units{campaign=\"c\",state=\"open\"} 1"),
+        "{m}"
+    );
+    assert!(m.contains("# TYPE cubehunt_workers gauge"));
+    let (s, html) = e.get("/").await;
+    assert_eq!(s, StatusCode::OK);
+    assert!(html.as_str().unwrap().contains("<html"));
+    let (_, doc) = e.get("/api/v1/openapi.json").await;
+    assert_eq!(doc["openapi"], "3.1.0");
+    // Every documented operation exists (is not answered by the fallback).
+    let mut n = 0;
+    for (path, ops) in doc["paths"].as_object().unwrap() {
+        let concrete = path
+            .replace("{name}", "c")
+            .replace("{id}", "1")
+            .replace("{action}", "pause");
+        for method in ops.as_object().unwrap().keys() {
+            let req = Request::builder()
+                .method(method.to_uppercase().as_str())
+                .uri(&concrete)
+                .body(Body::empty())
+                .unwrap();
+            let (_, v) = e.call(req).await;
+            assert_ne!(
+                v["error"], "no_route",
+                "{method} {path} is documented but not routed"
+            );
+            n += 1;
+        }
+    }
+    assert!(n >= 17, "{n} operations documented");
+    let (s, v) = e.get("/api/v1/nothing-here").await;
+    assert_eq!(
+        (s, v["error"].clone()),
+        (StatusCode::NOT_FOUND, json!("no_route"))
+    );
+}

@@ -1,0 +1,278 @@
+//! Read-only monitoring: campaigns with progress, solutions, workers, `/metrics`,
+//! `/healthz` and the status page. No authentication, no state changes.
+
+use super::{ApiResult, AppError, AppState, Shared};
+use crate::store::{CampaignRow, SolutionRow, TargetStats, UnitCounts, WorkerView};
+use axum::extract::{Path, State};
+use axum::http::header;
+use axum::response::{Html, IntoResponse};
+use axum::Json;
+use cubehunt_common::Solution;
+use serde::Serialize;
+
+/// Rate window: cost settled over the last this many seconds.
+pub const RATE_WINDOW_S: i64 = 900;
+
+#[derive(Clone, Debug, Serialize, serde::Deserialize)]
+pub struct Progress {
+    pub units: UnitCounts,
+    /// Estimated reference-core seconds of all units, and of the settled ones.
+    pub cost_total_s: f64,
+    pub cost_settled_s: f64,
+    /// Settled share of the work, by cost (0..=1).
+    pub fraction: f64,
+    /// Settled reference-core seconds per second over the last 15 minutes.
+    pub rate: f64,
+    /// Seconds until complete at that rate (`null` when nothing is moving).
+    pub eta_s: Option<f64>,
+}
+
+#[derive(Clone, Debug, Serialize, serde::Deserialize)]
+pub struct TargetView {
+    pub k: i64,
+    pub bound: u64,
+    pub z0: u64,
+    #[serde(flatten)]
+    pub progress: Progress,
+    pub solutions: Vec<Solution>,
+}
+
+#[derive(Clone, Debug, Serialize, serde::Deserialize)]
+pub struct CampaignView {
+    pub name: String,
+    /// `complete` once every unit of every target is settled; otherwise `active`, `paused`
+    /// or `cancelled`.
+    pub state: String,
+    pub kernel: String,
+    pub bound: u64,
+    pub unit_seconds: f64,
+    pub created_at: i64,
+    #[serde(flatten)]
+    pub progress: Progress,
+    pub targets: Vec<TargetView>,
+    /// Every settled solution of every target, triples sorted ascending, by k then triple.
+    pub solutions: Vec<Solution>,
+}
+
+fn progress(
+    units: UnitCounts,
+    total_us: i64,
+    settled_us: i64,
+    recent_us: i64,
+    window_s: i64,
+) -> Progress {
+    let cost_total_s = total_us as f64 / 1e6;
+    let cost_settled_s = settled_us as f64 / 1e6;
+    let rate = recent_us as f64 / 1e6 / window_s.max(1) as f64;
+    let remaining = (cost_total_s - cost_settled_s).max(0.0);
+    let eta_s = if units.settled == units.total {
+        Some(0.0)
+    } else if rate > 0.0 {
+        Some(remaining / rate)
+    } else {
+        None
+    };
+    Progress {
+        units,
+        cost_total_s,
+        cost_settled_s,
+        fraction: if total_us > 0 {
+            settled_us as f64 / total_us as f64
+        } else {
+            0.0
+        },
+        rate,
+        eta_s,
+    }
+}
+
+pub async fn campaign_view(st: &AppState, c: &CampaignRow) -> ApiResult<CampaignView> {
+    let now = crate::now();
+    let window = RATE_WINDOW_S.min(now - c.created_at).max(1);
+    let stats = st.store.campaign_stats(c.id, now - window).await?;
+    let mut all = UnitCounts::default();
+    let (mut tot, mut set, mut rec) = (0, 0, 0);
+    let mut targets = Vec::new();
+    let mut solutions = Vec::new();
+    for TargetStats {
+        target,
+        units,
+        cost_total_us,
+        cost_settled_us,
+        cost_settled_recent_us,
+        solutions: sols,
+    } in stats.targets
+    {
+        all.total += units.total;
+        all.open += units.open;
+        all.leased += units.leased;
+        all.settled += units.settled;
+        all.disputed += units.disputed;
+        tot += cost_total_us;
+        set += cost_settled_us;
+        rec += cost_settled_recent_us;
+        solutions.extend(sols.iter().copied());
+        targets.push(TargetView {
+            k: target.k,
+            bound: target.bound,
+            z0: target.z0,
+            progress: progress(
+                units,
+                cost_total_us,
+                cost_settled_us,
+                cost_settled_recent_us,
+                window,
+            ),
+            solutions: sols,
+        });
+    }
+    let complete = all.total > 0 && all.settled == all.total;
+    Ok(CampaignView {
+        name: c.name.clone(),
+        state: if complete {
+            "complete".into()
+        } else {
+            c.state.clone()
+        },
+        kernel: c.kernel.clone(),
+        bound: c.bound,
+        unit_seconds: c.unit_seconds,
+        created_at: c.created_at,
+        progress: progress(all, tot, set, rec, window),
+        targets,
+        solutions,
+    })
+}
+
+pub async fn find_campaign(st: &AppState, name: &str) -> ApiResult<CampaignRow> {
+    st.store.campaign(name).await?.ok_or_else(|| {
+        AppError::not_found(
+            "no_campaign",
+            format!("no campaign named {name:?}; GET /api/v1/campaigns lists them"),
+        )
+    })
+}
+
+pub async fn all_views(st: &AppState) -> ApiResult<Vec<CampaignView>> {
+    let mut v = Vec::new();
+    for c in st.store.campaigns().await? {
+        v.push(campaign_view(st, &c).await?);
+    }
+    Ok(v)
+}
+
+pub async fn campaigns(State(st): State<Shared>) -> ApiResult<Json<Vec<CampaignView>>> {
+    Ok(Json(all_views(&st).await?))
+}
+
+pub async fn campaign(
+    State(st): State<Shared>,
+    Path(name): Path<String>,
+) -> ApiResult<Json<CampaignView>> {
+    let c = find_campaign(&st, &name).await?;
+    Ok(Json(campaign_view(&st, &c).await?))
+}
+
+pub async fn solutions(
+    State(st): State<Shared>,
+    Path(name): Path<String>,
+) -> ApiResult<Json<Vec<SolutionRow>>> {
+    let c = find_campaign(&st, &name).await?;
+    Ok(Json(st.store.campaign_solutions(c.id).await?))
+}
+
+pub async fn workers(State(st): State<Shared>) -> ApiResult<Json<Vec<WorkerView>>> {
+    Ok(Json(st.store.workers().await?))
+}
+
+pub async fn healthz(State(st): State<Shared>) -> ApiResult<Json<serde_json::Value>> {
+    let v = st.store.schema_version().await?;
+    Ok(Json(
+        serde_json::json!({ "ok": true, "schema_version": v, "kernel": cubehunt_common::KERNEL_VERSION }),
+    ))
+}
+
+pub async fn metrics(State(st): State<Shared>) -> ApiResult<impl IntoResponse> {
+    use std::fmt::Write;
+    let m = st.store.metrics().await?;
+    let mut s = String::new();
+    let head = |s: &mut String, name: &str, help: &str| {
+        let _ = writeln!(s, "# HELP {name} {help}\n# TYPE {name} gauge");
+    };
+    head(&mut s, "cubehunt_units", "Units by campaign and state.");
+    for (c, state, n) in &m.units {
+        let _ = writeln!(
+            s,
+            "cubehunt_units{{campaign=\"{c}\",state=\"{state}\"}} {n}"
+        );
+    }
+    head(
+        &mut s,
+        "cubehunt_campaign_info",
+        "One series per campaign, labelled with its stored state.",
+    );
+    for (c, state) in &m.campaigns {
+        let _ = writeln!(
+            s,
+            "cubehunt_campaign_info{{campaign=\"{c}\",state=\"{state}\"}} 1"
+        );
+    }
+    head(
+        &mut s,
+        "cubehunt_leases_active",
+        "Leases currently held by workers.",
+    );
+    let _ = writeln!(s, "cubehunt_leases_active {}", m.leases_active);
+    head(&mut s, "cubehunt_reports", "Stored reports by verdict.");
+    for (v, n) in &m.reports {
+        let _ = writeln!(s, "cubehunt_reports{{verdict=\"{v}\"}} {n}");
+    }
+    head(&mut s, "cubehunt_workers", "Enrolled workers.");
+    let _ = writeln!(s, "cubehunt_workers {}", m.workers);
+    head(
+        &mut s,
+        "cubehunt_workers_quarantined",
+        "Workers quarantined after repeated wrong reports.",
+    );
+    let _ = writeln!(s, "cubehunt_workers_quarantined {}", m.workers_quarantined);
+    head(
+        &mut s,
+        "cubehunt_solutions",
+        "Settled solutions stored, over all targets.",
+    );
+    let _ = writeln!(s, "cubehunt_solutions {}", m.solutions);
+    head(
+        &mut s,
+        "cubehunt_uptime_seconds",
+        "Seconds since this coordinator process started.",
+    );
+    let _ = writeln!(
+        s,
+        "cubehunt_uptime_seconds {}",
+        crate::now() - st.started_at
+    );
+    Ok((
+        [(
+            header::CONTENT_TYPE,
+            "text/plain; version=0.0.4; charset=utf-8",
+        )],
+        s,
+    ))
+}
+
+/// The status page (static HTML over the JSON API).
+pub const STATUS_HTML: &str = include_str!("../../static/status.html");
+
+pub async fn status_page() -> Html<&'static str> {
+    Html(STATUS_HTML)
+}
+
+pub async fn not_found(uri: axum::http::Uri) -> AppError {
+    AppError::not_found(
+        "no_route",
+        format!(
+            "no endpoint {}; GET /api/v1/openapi.json lists them",
+            uri.path()
+        ),
+    )
+}

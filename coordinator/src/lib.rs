@@ -1,0 +1,33 @@
+//! cubehunt-coordinator: hosts campaigns, plans and signs units, leases them to volunteer
+//! workers, cross-checks their reports and serves the read-only monitoring API.
+//!
+//! Code map, one concern per module:
+//! * [`store`] — SQLite; the only module that contains SQL.
+//! * [`plan`] — cutting a target's regions into units with the kernel's cost model.
+//! * [`quorum`] — when reports agree, settle, or dispute (no storage).
+//! * [`api`] — the HTTP service (axum): admin, worker protocol, monitoring, errors.
+//! * [`datadir`] — the data directory: database, coordinator key, admin token.
+//! * [`config`] — service settings.
+//! * [`cli`] — the `campaign …` commands, a client of the admin API.
+//!
+//! Deliberately absent: any knowledge of how a unit is sieved (that is the kernel's, in
+//! `cubehunt-common`), and any trust in what a worker says about itself.
+
+#![recursion_limit = "512"]
+
+pub mod api;
+pub mod cli;
+pub mod config;
+pub mod datadir;
+pub mod plan;
+pub mod quorum;
+pub mod serve;
+pub mod store;
+
+/// Unix seconds now.
+pub fn now() -> i64 {
+    std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map(|d| d.as_secs() as i64)
+        .unwrap_or(0)
+}
