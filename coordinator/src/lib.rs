@@ -18,7 +18,9 @@
 pub mod api;
 pub mod cli;
 pub mod config;
+pub mod config_file;
 pub mod datadir;
+pub mod demo;
 pub mod plan;
 pub mod quorum;
 pub mod serve;
