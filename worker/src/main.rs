@@ -1,13 +1,15 @@
 //! cubehunt-worker: searches for integer solutions of x³ + y³ + z³ = k.
 //!
 //! * `solo` — every region of one target up to a bound, on this machine;
-//! * `scan` — one rectangle of one region (re-checking a unit by hand, audits).
+//! * `scan` — one rectangle of one region (re-checking a unit by hand, audits);
+//! * `run` — the volunteer loop: lease units from a coordinator, compute, report.
 //!
 //! The mathematics is in `cubehunt_common::kernel`; this binary parses, reports progress
 //! and prints. It does not decide what to search: that is the caller's (or the coordinator's).
 
 mod local;
 mod meter;
+mod run;
 
 use clap::{Parser, Subcommand};
 
@@ -86,6 +88,9 @@ Output as for solo (bound is z-max). Used to re-check a unit by hand and by audi
         after_help = "Example: cubehunt-worker scan --k 33 --region main --d-min 1 --d-max 100 --z-min 5 --z-max 1e5"
     )]
     Scan(local::ScanArgs),
+    /// Donate this machine's idle time to a campaign: lease units from a coordinator,
+    /// compute them at idle priority with checkpoints, return signed reports.
+    Run(run::RunArgs),
 }
 
 fn main() {
@@ -93,6 +98,7 @@ fn main() {
     let r = match cli.command {
         Command::Solo(a) => local::solo(a),
         Command::Scan(a) => local::scan(a),
+        Command::Run(a) => run::run(a),
     };
     if let Err(e) = r {
         eprintln!("error: {e:#}");

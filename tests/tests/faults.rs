@@ -1,0 +1,165 @@
+//! Misbehaving workers against a real coordinator: a wrong digest is outvoted and counted, a
+//! forged solution is refused and counted, a report for someone else's lease is refused, and a
+//! replayed report changes nothing. The misbehaving worker is driven by hand
+//! (`HandWorker`, speaking the protocol with `cubehunt_common::sign`); honest work is done by
+//! real `cubehunt-worker run` processes.
+
+use cubehunt_common::{Digest, Region, Solution};
+use cubehunt_tests::*;
+use serde_json::Value;
+use std::collections::BTreeSet;
+use std::time::Duration;
+
+const SERVE: &[&str] = &["--retry-after-s", "1", "--sweep-s", "1"];
+
+fn errors(coord: &Coordinator, id: i64) -> i64 {
+    coord.worker_view(id).unwrap()["errors"].as_i64().unwrap()
+}
+
+#[test]
+fn lies_are_outvoted_refused_and_counted_and_replays_change_nothing() {
+    let _g = serial();
+    let tmp = tempfile::tempdir().unwrap();
+    let coord = Coordinator::start(tmp.path(), SERVE).unwrap();
+    // One unit per region: small, equal, main.
+    let created = coord.create_campaign("faults", "3", "300", 1e6).unwrap();
+    assert_eq!(created["units"]["total"].as_i64(), Some(3), "{created}");
+
+    let mallory = HandWorker::enrol(&coord.url(), "mallory").unwrap();
+    let trudy = HandWorker::enrol(&coord.url(), "trudy").unwrap();
+    assert_eq!(mallory.coordinator_key, coord.public_key);
+    let grants: Vec<_> = (0..3)
+        .map(|_| mallory.lease(Duration::from_secs(10)).unwrap())
+        .collect();
+    for g in &grants {
+        mallory.check_unit(g).unwrap();
+    }
+    let units: BTreeSet<i64> = grants.iter().map(|g| g.unit.unit.unit_id).collect();
+    assert_eq!(units.len(), 3, "three different units");
+    let by_region = |r: Region| {
+        grants
+            .iter()
+            .find(|g| g.unit.unit.rect.region == r)
+            .unwrap()
+            .clone()
+    };
+    let (g_small, g_equal, g_main) = (
+        by_region(Region::Small),
+        by_region(Region::Equal),
+        by_region(Region::Main),
+    );
+
+    // 1. Someone else's lease: trudy reports on mallory's lease with a correct report.
+    let (d, sols) = honest(&g_main);
+    let mut stolen = mallory.report_for(&g_main, d, sols.clone());
+    stolen.report.worker_id = trudy.worker_id;
+    stolen.signature = cubehunt_common::sign::sign(&trudy.key, &stolen.report.canonical_bytes());
+    let a = trudy.send(&trudy.prepare_report(&stolen)).unwrap();
+    assert_eq!(a.status, 403, "{a:?}");
+    assert_eq!(a.error_code(), "not_your_lease");
+    assert_eq!(
+        coord.worker_view(trudy.worker_id).unwrap()["reports"].as_i64(),
+        Some(0)
+    );
+
+    // 2. A forged solution: the honest digest of the equal-region unit plus a false triple.
+    let (d, mut sols) = honest(&g_equal);
+    sols.push(Solution::new(2, 3, 5)); // 8 + 27 + 125 ≠ 3
+    let a = mallory
+        .send(&mallory.prepare_report(&mallory.report_for(&g_equal, d, sols)))
+        .unwrap();
+    assert_eq!(a.status, 422, "a false solution is refused: {a:?}");
+    assert_eq!(errors(&coord, mallory.worker_id), 1, "and counted");
+
+    // 3. A replay: mallory's honest report of the main unit, sent twice verbatim.
+    let (d, sols) = honest(&g_main);
+    let wire = mallory.prepare_report(&mallory.report_for(&g_main, d, sols));
+    let first = mallory.send(&wire).unwrap();
+    assert!(first.ok(), "{first:?}");
+    assert_eq!(first.body["accepted"], Value::Bool(true));
+    let before = coord.show("faults").unwrap();
+    let reports_before = coord.worker_view(mallory.worker_id).unwrap()["reports"].clone();
+    let again = mallory.send(&wire).unwrap();
+    assert!(again.ok(), "a replay is answered, not an error: {again:?}");
+    assert_eq!(again.body["accepted"], Value::Bool(false), "{again:?}");
+    assert_eq!(again.body["unit_state"], first.body["unit_state"]);
+    assert_eq!(
+        coord.worker_view(mallory.worker_id).unwrap()["reports"],
+        reports_before
+    );
+    assert_eq!(
+        coord.show("faults").unwrap()["units"],
+        before["units"],
+        "a replay changes no unit"
+    );
+
+    // 4. A wrong digest for the small-region unit: the honest hash plus one.
+    let (d, sols) = honest(&g_small);
+    let wrong = Digest {
+        hash: d.hash.wrapping_add(1),
+        ..d
+    };
+    let a = mallory
+        .send(&mallory.prepare_report(&mallory.report_for(&g_small, wrong, sols)))
+        .unwrap();
+    assert!(
+        a.ok(),
+        "a wrong digest cannot be told from a right one yet: {a:?}"
+    );
+
+    // Honest workers of three other owners finish the campaign.
+    let workers: Vec<Worker> = ["olga", "pavel", "quinn"]
+        .iter()
+        .map(|o| Worker::start(tmp.path(), &coord.url(), o, &[]))
+        .map(Result::unwrap)
+        .collect();
+    let view = coord
+        .wait_complete("faults", Duration::from_secs(120))
+        .unwrap_or_else(|e| {
+            for w in &workers {
+                eprintln!("--- worker {}:\n{}", w.owner, w.log_text());
+            }
+            panic!("{e:#}\n--- coordinator:\n{}", coord.log_text());
+        });
+    // The wrong digest opened a dispute that the honest majority settled; mallory's second
+    // error is the outvoted report. The false triple was never stored.
+    assert_eq!(
+        errors(&coord, mallory.worker_id),
+        2,
+        "{}",
+        coord.worker_view(mallory.worker_id).unwrap()
+    );
+    for w in &workers {
+        assert_eq!(errors(&coord, w.worker_id().unwrap()), 0);
+    }
+    assert_eq!(
+        errors(&coord, trudy.worker_id),
+        0,
+        "a refused foreign report is not the thief's error count"
+    );
+    // (1, 1, 1) and (4, 4, −5): the solutions of k = 3 with min ≤ 300 (classical; from memory,
+    // verified exactly here; next known min ≈ 4.7·10¹⁷, Booker and Sutherland, PNAS 118, 2021).
+    let want: BTreeSet<Solution> = [Solution::new(1, 1, 1), Solution::new(4, 4, -5)]
+        .into_iter()
+        .collect();
+    assert!(want.iter().all(|s| s.verify(3)));
+    assert_eq!(view_solutions(&view), want, "{view}");
+    assert_eq!(
+        kernel_solutions(3, 300),
+        want,
+        "the kernel, run here, agrees"
+    );
+    // The disputed unit needed a third report: its two honest reports came from other owners.
+    let total_reports: i64 = workers
+        .iter()
+        .map(|w| {
+            coord.worker_view(w.worker_id().unwrap()).unwrap()["reports"]
+                .as_i64()
+                .unwrap()
+        })
+        .sum();
+    assert!(
+        total_reports >= 4,
+        "2 for the small unit, 1 each for the others at least: {total_reports}"
+    );
+}
