@@ -22,7 +22,7 @@ use tokio::process::{Child, Command};
 /// The scenario.
 const CAMPAIGN: &str = "riverside-weekend";
 const TARGETS: &str = "3,10,12,29,30,33,42";
-const DEFAULT_BOUND: &str = "1e5";
+const DEFAULT_BOUND: &str = "3e7";
 const UNIT_SECONDS: &str = "2";
 /// (owner, label): club members and their machines.
 const MEMBERS: [(&str, &str); 4] = [
@@ -42,7 +42,7 @@ pub struct DemoArgs {
     /// Number of local workers (each one thread, each under its own owner name), 2 to 4.
     #[arg(long, default_value_t = 3, value_parser = clap::value_parser!(u8).range(2..=4))]
     pub workers: u8,
-    /// Bound on the smallest coordinate for every target (e.g. 1e5).
+    /// Bound on the smallest coordinate for every target (e.g. 1e6 for a quicker run).
     #[arg(long, default_value = DEFAULT_BOUND)]
     pub bound: String,
     /// Give up if the campaign is not complete after this many seconds.
@@ -377,7 +377,7 @@ async fn demo(a: &DemoArgs, exe: &Path, worker_bin: &Path, place: &Place) -> Res
             .flatten()
             .map(triple)
             .collect();
-        let k = &t["k"];
+        let k = t["k"].as_i64().unwrap_or(0);
         if sols.is_empty() {
             println!("  k = {k:>3}: none with min ≤ {}", t["bound"]);
         } else {
@@ -417,7 +417,7 @@ async fn demo(a: &DemoArgs, exe: &Path, worker_bin: &Path, place: &Place) -> Res
         all_verified &= code == 0;
         let root = doc["root"].as_str().unwrap_or("");
         println!(
-            "  k = {k:>3}: bound {}, {} units, {} solutions, root {}…  {verdict}",
+            "  k = {k:>3}: bound {}, {:>3} units, {} solutions, root {}…  {verdict}",
             doc["bound"],
             doc["units"].as_array().map_or(0, Vec::len),
             doc["solutions"].as_array().map_or(0, Vec::len),
