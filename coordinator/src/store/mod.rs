@@ -10,8 +10,10 @@
 //!
 //! Submodules, one concern each: [`campaigns`] (campaigns, targets, planned units),
 //! [`workers`] (enrolment), [`leases`] (hand-out, heartbeat, expiry), [`reports`]
-//! (cross-check and settlement), [`monitor`] (read-only views for the API and `/metrics`).
+//! (cross-check and settlement), [`monitor`] (read-only views for the API and `/metrics`),
+//! [`audit`] (raw rows for the audit, certificates and exports).
 
+pub mod audit;
 pub mod campaigns;
 pub mod leases;
 pub mod monitor;
