@@ -381,7 +381,15 @@ async fn demo(a: &DemoArgs, exe: &Path, worker_bin: &Path, place: &Place) -> Res
         if sols.is_empty() {
             println!("  k = {k:>3}: none with min ≤ {}", t["bound"]);
         } else {
-            println!("  k = {k:>3}: {}", sols.join("  "));
+            // Three to a line: the larger coordinates run to many digits.
+            for (i, line) in sols.chunks(3).enumerate() {
+                let head = if i == 0 {
+                    format!("k = {k:>3}:")
+                } else {
+                    String::new()
+                };
+                println!("  {head:<8} {}", line.join("  "));
+            }
         }
     }
 
