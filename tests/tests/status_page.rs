@@ -19,7 +19,9 @@ fn chromium() -> Option<PathBuf> {
         return Some(PathBuf::from(p));
     }
     let path = std::env::var_os("PATH")?;
-    std::env::split_paths(&path).map(|d| d.join("chromium")).find(|p| p.is_file())
+    std::env::split_paths(&path)
+        .map(|d| d.join("chromium"))
+        .find(|p| p.is_file())
 }
 
 fn browser_args(profile: &Path) -> Vec<String> {
@@ -49,7 +51,11 @@ struct Shown {
 }
 
 fn unescape(s: &str) -> String {
-    s.replace("&quot;", "\"").replace("&lt;", "<").replace("&gt;", ">").replace("&nbsp;", "\u{a0}").replace("&amp;", "&")
+    s.replace("&quot;", "\"")
+        .replace("&lt;", "<")
+        .replace("&gt;", ">")
+        .replace("&nbsp;", "\u{a0}")
+        .replace("&amp;", "&")
 }
 
 fn attr(tag: &str, name: &str) -> Option<String> {
@@ -70,7 +76,13 @@ fn shown_numbers(dom: &str) -> BTreeMap<String, Shown> {
         let tag = &dom[start..end];
         let text_end = end + 1 + dom[end + 1..].find('<').unwrap_or(0);
         let key = attr(tag, "data-num").unwrap();
-        out.insert(key, Shown { value: attr(tag, "data-value").unwrap_or_default(), text: unescape(&dom[end + 1..text_end]) });
+        out.insert(
+            key,
+            Shown {
+                value: attr(tag, "data-value").unwrap_or_default(),
+                text: unescape(&dom[end + 1..text_end]),
+            },
+        );
         at = end;
     }
     out
@@ -90,16 +102,31 @@ fn shown_triples(dom: &str) -> BTreeSet<String> {
 }
 
 fn get<'a>(shown: &'a BTreeMap<String, Shown>, key: &str) -> Result<&'a Shown> {
-    shown.get(key).with_context(|| format!("the page shows no data-num={key:?}; it shows {:?}", shown.keys().collect::<Vec<_>>()))
+    shown.get(key).with_context(|| {
+        format!(
+            "the page shows no data-num={key:?}; it shows {:?}",
+            shown.keys().collect::<Vec<_>>()
+        )
+    })
 }
 
 /// A count as shown ("1,234") equals the API's.
 fn check_count(shown: &BTreeMap<String, Shown>, key: &str, api: &Value) -> Result<()> {
     let s = get(shown, key)?;
-    let want = api.as_i64().with_context(|| format!("API value for {key} is {api}"))?;
-    let text: i64 = s.text.replace(',', "").parse().with_context(|| format!("{key}: shown text {:?} is not a count", s.text))?;
+    let want = api
+        .as_i64()
+        .with_context(|| format!("API value for {key} is {api}"))?;
+    let text: i64 = s
+        .text
+        .replace(',', "")
+        .parse()
+        .with_context(|| format!("{key}: shown text {:?} is not a count", s.text))?;
     if text != want || s.value != want.to_string() {
-        bail!("{key}: the page shows {:?} (data-value {:?}), the API says {want}", s.text, s.value);
+        bail!(
+            "{key}: the page shows {:?} (data-value {:?}), the API says {want}",
+            s.text,
+            s.value
+        );
     }
     Ok(())
 }
@@ -107,8 +134,14 @@ fn check_count(shown: &BTreeMap<String, Shown>, key: &str, api: &Value) -> Resul
 /// A fraction as shown ("58.0%", "100%") matches the API's to the shown precision.
 fn check_fraction(shown: &BTreeMap<String, Shown>, key: &str, api: &Value) -> Result<()> {
     let s = get(shown, key)?;
-    let want = api.as_f64().with_context(|| format!("API value for {key} is {api}"))?;
-    let pct: f64 = s.text.trim_end_matches('%').parse().with_context(|| format!("{key}: shown text {:?} is not a percentage", s.text))?;
+    let want = api
+        .as_f64()
+        .with_context(|| format!("API value for {key} is {api}"))?;
+    let pct: f64 = s
+        .text
+        .trim_end_matches('%')
+        .parse()
+        .with_context(|| format!("{key}: shown text {:?} is not a percentage", s.text))?;
     if (pct / 100.0 - want).abs() > 0.0006 || (want < 1.0 && s.text == "100%") {
         bail!("{key}: the page shows {:?}, the API says {want}", s.text);
     }
@@ -151,9 +184,16 @@ fn status_page_shows_what_the_api_says() -> Result<()> {
         Worker::start(root, &coord.url(), "dora", &[])?,
         Worker::start(root, &coord.url(), "emeka", &[])?,
     ];
-    coord.wait_complete("maths-club-friday", Duration::from_secs(240)).with_context(|| {
-        format!("worker logs:\n{}\n{}\ncoordinator log:\n{}", workers[0].log_text(), workers[1].log_text(), coord.log_text())
-    })?;
+    coord
+        .wait_complete("maths-club-friday", Duration::from_secs(240))
+        .with_context(|| {
+            format!(
+                "worker logs:\n{}\n{}\ncoordinator log:\n{}",
+                workers[0].log_text(),
+                workers[1].log_text(),
+                coord.log_text()
+            )
+        })?;
     for w in &mut workers {
         w.proc.kill9();
     }
@@ -163,13 +203,19 @@ fn status_page_shows_what_the_api_says() -> Result<()> {
     // Nothing moves from here on: what the API says now is what the page must show.
     let campaigns = coord.get("/api/v1/campaigns")?;
     let api_workers = coord.workers()?;
-    let campaigns = campaigns.as_array().context("/api/v1/campaigns is an array")?.clone();
+    let campaigns = campaigns
+        .as_array()
+        .context("/api/v1/campaigns is an array")?
+        .clone();
     assert_eq!(campaigns.len(), 2);
 
     let profile = root.join("chromium-profile");
     let url = format!("{}/", coord.url());
     let dom = chromium_run(&browser, &profile, &["--dump-dom".to_string()], &url)?;
-    assert!(dom.contains("data-state=\"ok\""), "the page did not reach the API; its DOM:\n{dom}");
+    assert!(
+        dom.contains("data-state=\"ok\""),
+        "the page did not reach the API; its DOM:\n{dom}"
+    );
     let shown = shown_numbers(&dom);
 
     let mut total_units = 0;
@@ -179,9 +225,17 @@ fn status_page_shows_what_the_api_says() -> Result<()> {
     for c in &campaigns {
         let name = c["name"].as_str().unwrap();
         let cs = format!("c/{name}");
-        assert_eq!(get(&shown, &format!("{cs}/state"))?.text, c["state"].as_str().unwrap(), "{name}: state");
+        assert_eq!(
+            get(&shown, &format!("{cs}/state"))?.text,
+            c["state"].as_str().unwrap(),
+            "{name}: state"
+        );
         check_fraction(&shown, &format!("{cs}/fraction"), &c["fraction"])?;
-        assert_eq!(get(&shown, &format!("{cs}/bound"))?.value, c["bound"].to_string(), "{name}: bound");
+        assert_eq!(
+            get(&shown, &format!("{cs}/bound"))?.value,
+            c["bound"].to_string(),
+            "{name}: bound"
+        );
         let eta = get(&shown, &format!("{cs}/eta_s"))?;
         if c["state"] == "complete" {
             assert_eq!(eta.text, "done", "{name}: a complete campaign's ETA");
@@ -191,13 +245,27 @@ fn status_page_shows_what_the_api_says() -> Result<()> {
         for t in c["targets"].as_array().unwrap() {
             let k = t["k"].as_i64().unwrap();
             let ts = format!("t/{name}/{k}");
-            for (field, api) in [("total", "units_total"), ("settled", "units_settled"), ("leased", "units_leased"), ("disputed", "units_disputed")] {
+            for (field, api) in [
+                ("total", "units_total"),
+                ("settled", "units_settled"),
+                ("leased", "units_leased"),
+                ("disputed", "units_disputed"),
+            ] {
                 check_count(&shown, &format!("{ts}/{api}"), &t["units"][field])?;
             }
             check_fraction(&shown, &format!("{ts}/fraction"), &t["fraction"])?;
-            check_count(&shown, &format!("{ts}/solutions"), &Value::from(t["solutions"].as_array().unwrap().len()))?;
+            check_count(
+                &shown,
+                &format!("{ts}/solutions"),
+                &Value::from(t["solutions"].as_array().unwrap().len()),
+            )?;
             for s in t["solutions"].as_array().unwrap() {
-                let parts: Vec<&str> = s.as_array().unwrap().iter().map(|v| v.as_str().unwrap()).collect();
+                let parts: Vec<&str> = s
+                    .as_array()
+                    .unwrap()
+                    .iter()
+                    .map(|v| v.as_str().unwrap())
+                    .collect();
                 api_triples.insert(parts.join(","));
             }
             total_units += t["units"]["total"].as_i64().unwrap();
@@ -205,17 +273,30 @@ fn status_page_shows_what_the_api_says() -> Result<()> {
             targets += 1;
         }
     }
-    let first = &campaigns.iter().find(|c| c["name"] == "maths-club-friday").unwrap();
+    let first = &campaigns
+        .iter()
+        .find(|c| c["name"] == "maths-club-friday")
+        .unwrap();
     assert_eq!(first["state"], "complete");
-    assert!(api_triples.contains("1,1,1") && api_triples.contains("-5,4,4"), "k = 3 solutions {api_triples:?}");
-    assert_eq!(shown_triples(&dom), api_triples, "solutions table vs the API");
+    assert!(
+        api_triples.contains("1,1,1") && api_triples.contains("-5,4,4"),
+        "k = 3 solutions {api_triples:?}"
+    );
+    assert_eq!(
+        shown_triples(&dom),
+        api_triples,
+        "solutions table vs the API"
+    );
 
     check_count(&shown, "sum/campaigns", &Value::from(campaigns.len()))?;
     check_count(&shown, "sum/targets", &Value::from(targets))?;
     check_count(&shown, "sum/units_total", &Value::from(total_units))?;
     check_count(&shown, "sum/units_settled", &Value::from(settled_units))?;
     check_count(&shown, "sum/solutions", &Value::from(api_triples.len()))?;
-    let recent = api_workers.iter().filter(|w| unix_now() - w["last_seen"].as_i64().unwrap() < 600).count();
+    let recent = api_workers
+        .iter()
+        .filter(|w| unix_now() - w["last_seen"].as_i64().unwrap() < 600)
+        .count();
     check_count(&shown, "sum/workers_active", &Value::from(recent))?;
     assert_eq!(api_workers.len(), 2);
     for w in &api_workers {
@@ -227,12 +308,29 @@ fn status_page_shows_what_the_api_says() -> Result<()> {
     }
 
     // The screenshot, kept for people to look at.
-    let target_dir = bin("cubehunt-coordinator").parent().and_then(Path::parent).unwrap().to_path_buf();
+    let target_dir = bin("cubehunt-coordinator")
+        .parent()
+        .and_then(Path::parent)
+        .unwrap()
+        .to_path_buf();
     let png = target_dir.join("status-page.png");
     let _ = std::fs::remove_file(&png);
-    chromium_run(&browser, &profile, &[format!("--screenshot={}", png.display()), "--window-size=1280,900".into()], &url)?;
-    let bytes = std::fs::read(&png).with_context(|| format!("chromium wrote no screenshot at {}", png.display()))?;
-    assert!(bytes.starts_with(b"\x89PNG\r\n\x1a\n") && bytes.len() > 20_000, "{} is not a plausible screenshot", png.display());
+    chromium_run(
+        &browser,
+        &profile,
+        &[
+            format!("--screenshot={}", png.display()),
+            "--window-size=1280,900".into(),
+        ],
+        &url,
+    )?;
+    let bytes = std::fs::read(&png)
+        .with_context(|| format!("chromium wrote no screenshot at {}", png.display()))?;
+    assert!(
+        bytes.starts_with(b"\x89PNG\r\n\x1a\n") && bytes.len() > 20_000,
+        "{} is not a plausible screenshot",
+        png.display()
+    );
     eprintln!("status page screenshot: {}", png.display());
     Ok(())
 }
