@@ -6,10 +6,13 @@
 //! * [`report`] — what a worker returns for a lease, and its canonical encoding.
 //! * [`sign`] — Ed25519 keys, signatures over canonical bytes, signed HTTP requests.
 //! * [`protocol`] — the JSON bodies exchanged between worker and coordinator.
+//! * [`tiling`] — does a set of rectangles cover the three regions completely?
+//! * [`cert`] — coverage certificates: the signed document and its offline check.
 //!
 //! Deliberately absent: HTTP, SQL, files, clocks. The kernel knows nothing of campaigns;
 //! the protocol knows nothing of how a unit is sieved.
 
+pub mod cert;
 pub mod digest;
 pub mod kernel;
 pub mod numarg;
@@ -17,6 +20,7 @@ pub mod protocol;
 pub mod report;
 pub mod sign;
 pub mod solution;
+pub mod tiling;
 pub mod unit;
 
 pub use digest::Digest;

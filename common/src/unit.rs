@@ -81,7 +81,8 @@ pub struct UnitSpec {
     pub bound: u64,
     pub kernel: String,
     pub rect: Rect,
-    /// Estimated candidates `(d, z)`, the cost model's unit of work.
+    /// Estimated cost: reference-core microseconds (`kernel::estimate_seconds` × 10⁶, rounded up),
+    /// as planned by the coordinator.
     pub cost: u64,
 }
 

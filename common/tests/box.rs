@@ -6,7 +6,7 @@ use cubehunt_common::kernel;
 use cubehunt_common::Solution;
 use std::collections::{BTreeMap, BTreeSet};
 
-const N: i128 = 1000;
+const N: i128 = 3000;
 const KMAX: i128 = 100;
 
 /// ⌊∛v⌋ for any sign, exactly.

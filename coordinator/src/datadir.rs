@@ -137,3 +137,30 @@ fn write_private(p: &Path, content: &str) -> Result<()> {
     f.sync_all()?;
     Ok(())
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    #[tokio::test]
+    async fn init_makes_private_files_and_never_overwrites() {
+        let t = tempfile::tempdir().unwrap();
+        let root = t.path().join("dd");
+        let i = DataDir::init(&root).await.unwrap();
+        let d = &i.dir;
+        d.check().unwrap();
+        for f in [KEY_FILE, TOKEN_FILE] {
+            let mode = fs::metadata(d.path(f)).unwrap().permissions().mode() & 0o777;
+            assert_eq!(mode, 0o600, "{f}");
+        }
+        assert_eq!(d.admin_token().unwrap(), i.admin_token);
+        assert_eq!(
+            sign::public_to_hex(&d.signing_key().unwrap().verifying_key()),
+            i.public_key
+        );
+        let token_before = fs::read(d.path(TOKEN_FILE)).unwrap();
+        let e = DataDir::init(&root).await.err().unwrap().to_string();
+        assert!(e.contains("not empty"), "{e}");
+        assert_eq!(fs::read(d.path(TOKEN_FILE)).unwrap(), token_before);
+        assert!(DataDir::new(t.path()).check().is_err());
+    }
+}

@@ -9,6 +9,10 @@
 //! * [`datadir`] — the data directory: database, coordinator key, admin token.
 //! * [`config`] — service settings.
 //! * [`cli`] — the `campaign …` commands, a client of the admin API.
+//! * [`audit`] — re-derives every claim of the store from its raw rows.
+//! * [`certify`] — issues coverage certificates (the document is `cubehunt_common::cert`).
+//! * [`export`] — solutions and the per-unit ledger as CSV or JSON.
+//! * [`checks`] — the `audit`, `certificate`, `verify-certificate` and `export` commands.
 //!
 //! Deliberately absent: any knowledge of how a unit is sieved (that is the kernel's, in
 //! `cubehunt-common`), and any trust in what a worker says about itself.
@@ -16,9 +20,13 @@
 #![recursion_limit = "512"]
 
 pub mod api;
+pub mod audit;
+pub mod certify;
+pub mod checks;
 pub mod cli;
 pub mod config;
 pub mod datadir;
+pub mod export;
 pub mod plan;
 pub mod quorum;
 pub mod serve;

@@ -2,7 +2,7 @@
 
 use anyhow::Result;
 use clap::{Parser, Subcommand};
-use cubehunt_coordinator::{cli, config::ServiceConfig, datadir::DataDir, serve};
+use cubehunt_coordinator::{checks, cli, config::ServiceConfig, datadir::DataDir, serve};
 use std::path::PathBuf;
 
 #[derive(Debug, Parser)]
@@ -38,6 +38,15 @@ enum Command {
     },
     /// Administer campaigns through the admin API.
     Campaign(cli::CampaignArgs),
+    /// Re-derive every claim of the store: signatures, settlements, tiling, solutions, counts.
+    /// Exit 0 only when every check passes.
+    Audit(checks::AuditArgs),
+    /// Issue the signed coverage certificate of one target (JSON; --text for a rendering).
+    Certificate(checks::CertificateArgs),
+    /// Check a certificate offline (no database, no network). Exit 0 only when it holds.
+    VerifyCertificate(checks::VerifyArgs),
+    /// Export a campaign's solutions or its per-unit ledger as CSV or JSON.
+    Export(checks::ExportArgs),
 }
 
 fn init_logging(json: bool) {
@@ -80,6 +89,22 @@ async fn run(c: Cli) -> Result<()> {
             serve::run(DataDir::new(data_dir), &listen, config).await
         }
         Command::Campaign(a) => cli::run(a).await,
+        Command::Audit(a) => exit_with(checks::run_audit(a).await),
+        Command::Certificate(a) => exit_with(checks::run_certificate(a).await),
+        Command::VerifyCertificate(a) => exit_with(checks::run_verify(a).await),
+        Command::Export(a) => exit_with(checks::run_export(a).await),
+    }
+}
+
+/// Checks exit 0 when they hold, 1 when they do not, 2 when they could not run.
+fn exit_with(r: Result<i32>) -> Result<()> {
+    match r {
+        Ok(0) => Ok(()),
+        Ok(code) => std::process::exit(code),
+        Err(e) => {
+            eprintln!("error: {e:#}");
+            std::process::exit(2);
+        }
     }
 }
 

@@ -188,7 +188,7 @@ fn coordinator_killed_mid_campaign_loses_no_acknowledged_report() {
     let tmp = tempfile::tempdir().unwrap();
     let mut coord = Coordinator::start(tmp.path(), SERVE).unwrap();
     let created = coord
-        .create_campaign("restart", "2,3", "3000", 0.01)
+        .create_campaign("restart", "2,3", "100000", 0.001)
         .unwrap();
     let units = created["units"]["total"].as_i64().unwrap();
     assert!(units >= 8, "{created}");
@@ -247,10 +247,11 @@ fn coordinator_killed_mid_campaign_loses_no_acknowledged_report() {
             w.log_text()
         );
     }
-    // Solutions as in the campaign test: k = 2 family t = 1..22 (6t² ≤ 3000) plus (0, 1, 1),
-    // k = 3 the two classical ones (from memory; cross-checked with the kernel run here).
-    let mut want = kernel_solutions(2, 3000);
-    want.extend(kernel_solutions(3, 3000));
-    assert_eq!(want.len(), 1 + 22 + 2);
+    // Solutions: k = 2, Verebrusov's family (1+6t³, 1−6t³, −6t²) for t = 1..129 (6t² ≤ 10⁵)
+    // plus (0, 1, 1); k = 3 the two classical ones (from memory; cross-checked with the kernel
+    // run here).
+    let mut want = kernel_solutions(2, 100000);
+    want.extend(kernel_solutions(3, 100000));
+    assert_eq!(want.len(), 1 + 129 + 2);
     assert_eq!(view_solutions(&view), want);
 }

@@ -137,13 +137,35 @@ fn threads_used(t: usize) -> usize {
     }
 }
 
-/// Candidates of `rect` for the progress total: exact when counting is cheap.
+/// Candidates of `rect` for the progress total: exact when counting is cheap; otherwise the
+/// kernel's closed-form estimate, corrected by the ratio exact/estimate measured on a few
+/// narrow `d` windows spread geometrically over the range (the mean number of cube roots of
+/// `k` mod `d` depends on `k`).
 fn progress_total(k: i64, rect: &Rect) -> (f64, bool) {
     if rect.region != Region::Main || rect.d_hi - rect.d_lo <= 200_000 {
-        (kernel::candidates(k, rect) as f64, true)
-    } else {
-        (kernel::estimate_candidates(k, rect), false)
+        return (kernel::candidates(k, rect) as f64, true);
     }
+    let (a, b) = (rect.d_lo as f64, rect.d_hi as f64);
+    let (mut exact, mut est) = (0.0, 0.0);
+    for i in 0..8 {
+        let lo = (a * (b / a).powf((i as f64 + 0.5) / 8.0)) as u64;
+        let w = Rect {
+            d_lo: lo.max(rect.d_lo),
+            d_hi: (lo + 2000).min(rect.d_hi),
+            ..*rect
+        };
+        if w.d_lo >= w.d_hi || kernel::check_rect_allowing_cube(k, &w).is_err() {
+            continue;
+        }
+        exact += kernel::candidates(k, &w) as f64;
+        est += kernel::estimate_candidates(k, &w);
+    }
+    let ratio = if est > 0.0 && exact > 0.0 {
+        exact / est
+    } else {
+        1.0
+    };
+    (kernel::estimate_candidates(k, rect) * ratio, false)
 }
 
 fn run_rects(

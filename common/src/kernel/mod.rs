@@ -9,22 +9,36 @@
 //! * [`candidates`] — the candidate count of a rectangle, without doing the work.
 //! * [`estimate_seconds`] — the cost model: seconds on one reference core.
 //!
+//! Additions: [`check_target_allowing_cube`] and [`check_rect_allowing_cube`] (a cube `k` is
+//! searched for its non-trivial solutions only), [`check_bound`], [`cube_root`], [`domains`]
+//! (the non-empty regions up to a bound), [`solve`] (all regions up to a bound, as `solo`
+//! does) and [`estimate_candidates`] (a cheap approximation of [`candidates`] for progress).
+//!
+//! Code map: [`small`] (S, by factoring), [`equal`] (E, brute force then convergents of ∛2),
+//! [`main_region`] with [`sieve`], [`survivor`] and [`arith`] (C, Booker's method), and the
+//! naive paths used by the tests, [`naive_se`] (S and E) and `naive` (C). Each region module
+//! documents the digest fields it produces. `scan` checks the rectangle, turns a negative
+//! `k` into a positive one, dispatches, and verifies every solution in GMP.
+//!
 //! What this module does not do: choose rectangles (the coordinator plans), talk to anyone,
 //! or touch the file system.
 
 use crate::{Digest, Rect, Region, Solution};
 
+pub mod arith;
+mod divisors;
 pub mod equal;
 mod exact;
-mod factor;
-mod main_stub;
+pub mod main_region;
+#[doc(hidden)]
+pub mod naive;
 pub mod naive_se;
+pub mod sieve;
 pub mod small;
+pub mod survivor;
 
 pub use equal::{cbrt2_convergents, z1};
-pub use factor::{factor, is_prime};
 pub use main_region::survivor_hash;
-use main_stub as main_region;
 
 /// Largest `|z|` supported: `2⁶³ − 1`.
 pub const MAX_Z: u64 = i64::MAX as u64;
@@ -113,14 +127,6 @@ pub fn main_z_floor(d: u64) -> u64 {
     main_region::main_z_floor(d)
 }
 
-/// The least `d` with `d > α·bound`: `⌊∛2·bound⌋ − bound + 1`, exactly.
-fn main_d_end(bound: u64) -> u64 {
-    use rug::ops::Pow;
-    let b = rug::Integer::from(bound);
-    let r = (rug::Integer::from(2) * b.clone().pow(3)).root(3); // ⌊∛2·B⌋ (∛2·B is irrational)
-    (r - b + 1u32).to_u64().expect("d < 2^63")
-}
-
 /// The whole of one region of target `k` up to `bound`, as one rectangle:
 /// small `(0, Z0∧B]` (with `z = 0`), equal `(Z0, B]`, main `[1, D) × (Z0, B]` with `D` the least
 /// `d` such that `d > αB`. Returns `None` when the region is empty (e.g. `B ≤ Z0` for equal/main).
@@ -143,7 +149,7 @@ pub fn domain(k: i64, bound: u64, region: Region) -> Option<Rect> {
             z_hi: bound,
         }),
         Region::Main => {
-            let d_hi = main_d_end(bound);
+            let d_hi = main_region::main_d_end(bound); // least d with d > α·bound
             (bound > z0 && d_hi > 1).then_some(Rect {
                 region,
                 d_lo: 1,
@@ -257,7 +263,10 @@ pub fn scan(
     let run = || match rect.region {
         Region::Small => small::scan_small(ak, rect, progress),
         Region::Equal => equal::scan_equal(ak, rect, progress),
-        Region::Main => main_region::scan_main(ak, rect, threads, progress),
+        Region::Main => {
+            let o = main_region::scan_main(ak, rect, threads, progress);
+            (o.digest, o.solutions)
+        }
     };
     let (digest, found) = if threads == 0 || rect.region == Region::Main {
         run()

@@ -21,9 +21,10 @@
 //! * `hash` — Σ `survivor_hash(k, a, z)` over those divisors, mod 2⁶⁴. The divisors are
 //!   known only after factoring `k − z³`, so the hash cannot be produced without the work.
 
+use super::arith::factor_u64 as factor;
+use super::divisors::divisors_up_to;
 use super::exact::exact_sqrt_u128;
 use super::exact::icbrt_u128;
-use super::factor::{divisors_up_to, factor};
 use super::{survivor_hash, Progress};
 use crate::{Digest, Rect, Solution};
 use rayon::prelude::*;
@@ -102,11 +103,14 @@ pub fn scan_small(k: i64, rect: &Rect, progress: Progress) -> (Digest, Vec<Solut
     (dg, sols)
 }
 
-/// Seconds on one reference core: one factorisation of a number below `4k` per `z`.
+/// Seconds on one reference core: one factorisation of `|k − z³|` per `z`.
+///
+/// Pollard's rho costs grow with the size of `n`; measured (debug profile, which builds this
+/// crate at opt-level 3) about 10 µs per `z` for `n ≈ 2⁵⁰` and well under 1 µs for `n < 2²⁰`,
+/// modelled as `10⁻⁷ + 10⁻⁵·(b/50)⁴` seconds with `b` the bit length of the largest `n`.
 pub fn estimate_seconds_small(k: i64, rect: &Rect) -> f64 {
-    // Rho on n ≈ z³ costs about n^{1/4} modular steps in the worst case; for |n| < 2⁶¹ a
-    // factorisation takes a few microseconds on average (measured by the kernel benchmark).
-    let bits = 64 - (k.unsigned_abs().max(2)).leading_zeros();
-    let per_z = 1.0e-6 + 4.0e-8 * bits as f64;
+    let n_max = k.unsigned_abs() as u128 + (rect.z_hi as u128).pow(3);
+    let bits = (128 - n_max.leading_zeros()) as f64;
+    let per_z = 1.0e-7 + 1.0e-5 * (bits / 50.0).powi(4);
     candidates_small(rect) as f64 * per_z
 }

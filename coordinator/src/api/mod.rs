@@ -3,6 +3,7 @@
 //! * [`admin`] — campaign administration, bearer admin token.
 //! * [`worker`] — the worker protocol (`common::protocol`), signed requests.
 //! * [`monitor`] — read-only JSON, `/metrics`, `/healthz`, the status page.
+//! * [`records`] — coverage certificates and exports (read-only).
 //! * [`openapi`] — the OpenAPI document of all of the above.
 //! * [`auth`] — admin token and worker signature checks.
 //! * [`error`] — [`AppError`]: every failure's HTTP status and `ApiError` body.
@@ -12,6 +13,7 @@ pub mod auth;
 pub mod error;
 pub mod monitor;
 pub mod openapi;
+pub mod records;
 pub mod worker;
 
 #[cfg(test)]
@@ -70,6 +72,14 @@ pub fn router(state: Shared) -> Router {
         .route(
             "/api/v1/campaigns/{name}/solutions",
             get(monitor::solutions),
+        )
+        .route(
+            "/api/v1/campaigns/{name}/targets/{k}/certificate",
+            get(records::certificate),
+        )
+        .route(
+            "/api/v1/campaigns/{name}/export/{what}",
+            get(records::export),
         )
         .route("/api/v1/workers", get(monitor::workers))
         .route("/api/v1/enrol", post(worker::enrol))

@@ -5,7 +5,11 @@ use axum::Json;
 use serde_json::{json, Value};
 
 pub async fn document() -> Json<Value> {
-    Json(spec())
+    let mut doc = spec();
+    if let (Some(paths), Value::Object(more)) = (doc["paths"].as_object_mut(), super::records::openapi_paths()) {
+        paths.extend(more);
+    }
+    Json(doc)
 }
 
 fn err_responses(codes: &[&str]) -> Value {

@@ -2,6 +2,7 @@
 
 use super::{int, unit_from_row, Result, Store, StoreError, UnitRow, UNIT_COLUMNS};
 use cubehunt_common::{Rect, UnitSpec};
+use rayon::prelude::*;
 use sqlx::{QueryBuilder, Row, Sqlite, Transaction};
 
 /// A campaign as stored.
@@ -66,7 +67,8 @@ fn campaign_from_row(r: &sqlx::sqlite::SqliteRow) -> Result<CampaignRow> {
     })
 }
 
-const INSERT_CHUNK: usize = 500;
+const INSERT_CHUNK: usize = 8192;
+const ROWS_PER_STATEMENT: usize = 500;
 
 impl Store {
     /// Create a campaign with its targets and every planned unit, signing each unit.
@@ -292,8 +294,9 @@ async fn insert_plan(
     let mut total_cost: u64 = 0;
     for (chunk_no, chunk) in plan.units.chunks(INSERT_CHUNK).enumerate() {
         let base = first + (chunk_no * INSERT_CHUNK) as i64;
+        // Signing dominates planning a big campaign: spread it over the cores.
         let rows: Vec<(i64, &PlannedUnit, String)> = chunk
-            .iter()
+            .par_iter()
             .enumerate()
             .map(|(i, pu)| {
                 let id = base + i as i64;
@@ -309,23 +312,25 @@ async fn insert_plan(
                 (id, pu, sign(&spec))
             })
             .collect();
-        let mut qb: QueryBuilder<Sqlite> = QueryBuilder::new(
+        for rows in rows.chunks(ROWS_PER_STATEMENT) {
+            let mut qb: QueryBuilder<Sqlite> = QueryBuilder::new(
             "INSERT INTO units (id, target_id, campaign_id, region, d_lo, d_hi, z_lo, z_hi, bound, cost_us, signature) ",
         );
-        qb.push_values(rows, |mut b, (id, pu, sig)| {
-            b.push_bind(id)
-                .push_bind(target_id)
-                .push_bind(campaign_id)
-                .push_bind(pu.rect.region.name())
-                .push_bind(int(pu.rect.d_lo))
-                .push_bind(int(pu.rect.d_hi))
-                .push_bind(int(pu.rect.z_lo))
-                .push_bind(int(pu.rect.z_hi))
-                .push_bind(int(bound_to))
-                .push_bind(int(pu.cost_us))
-                .push_bind(sig);
-        });
-        qb.build().execute(&mut **tx).await?;
+            qb.push_values(rows, |mut b, (id, pu, sig)| {
+                b.push_bind(*id)
+                    .push_bind(target_id)
+                    .push_bind(campaign_id)
+                    .push_bind(pu.rect.region.name())
+                    .push_bind(int(pu.rect.d_lo))
+                    .push_bind(int(pu.rect.d_hi))
+                    .push_bind(int(pu.rect.z_lo))
+                    .push_bind(int(pu.rect.z_hi))
+                    .push_bind(int(bound_to))
+                    .push_bind(int(pu.cost_us))
+                    .push_bind(sig.clone());
+            });
+            qb.build().execute(&mut **tx).await?;
+        }
         total_cost = total_cost.saturating_add(chunk.iter().map(|u| u.cost_us).sum());
         tokio::task::yield_now().await;
     }

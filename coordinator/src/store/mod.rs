@@ -10,8 +10,10 @@
 //!
 //! Submodules, one concern each: [`campaigns`] (campaigns, targets, planned units),
 //! [`workers`] (enrolment), [`leases`] (hand-out, heartbeat, expiry), [`reports`]
-//! (cross-check and settlement), [`monitor`] (read-only views for the API and `/metrics`).
+//! (cross-check and settlement), [`monitor`] (read-only views for the API and `/metrics`),
+//! [`audit`] (raw rows for the audit, certificates and exports).
 
+pub mod audit;
 pub mod campaigns;
 pub mod leases;
 pub mod monitor;
@@ -182,5 +184,244 @@ pub(crate) mod testutil {
         let dir = tempfile::tempdir().unwrap();
         let store = Store::open(&dir.path().join("t.db"), true).await.unwrap();
         (store, dir)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::testutil::temp_store;
+    use super::*;
+    use cubehunt_common::{Solution, KERNEL_VERSION};
+
+    async fn seed(store: &Store, n: u64) {
+        let units = (1..=n)
+            .map(|d| PlannedUnit {
+                rect: Rect {
+                    region: Region::Main,
+                    d_lo: d,
+                    d_hi: d + 1,
+                    z_lo: 10,
+                    z_hi: 100,
+                },
+                cost_us: 5_000_000,
+            })
+            .collect();
+        let plan = TargetPlan {
+            k: 33,
+            z0: 5,
+            units,
+        };
+        let new = NewCampaign {
+            name: "c".into(),
+            kernel: KERNEL_VERSION.into(),
+            bound: 100,
+            unit_seconds: 5.0,
+        };
+        store
+            .create_campaign(&new, &[plan], &|s| format!("sig-{}", s.unit_id), 1000)
+            .await
+            .unwrap();
+    }
+
+    async fn worker(store: &Store, owner: &str, key: &str) -> WorkerRow {
+        let w = NewWorker {
+            owner: owner.into(),
+            public_key: key.into(),
+            kernel: KERNEL_VERSION.into(),
+            threads: 1,
+            label: String::new(),
+            address: String::new(),
+        };
+        store.enrol(&w, 1000).await.unwrap().worker
+    }
+
+    fn report(lease: &LeaseRow, digest: &str, solutions: Vec<Solution>) -> IncomingReport {
+        IncomingReport {
+            lease_id: lease.id,
+            worker_id: lease.worker_id,
+            digest: digest.into(),
+            candidates: 1,
+            solutions,
+            signature: "s".into(),
+            body: "{}".into(),
+            elapsed_s: 1.0,
+            refused: None,
+        }
+    }
+
+    #[tokio::test]
+    async fn planned_units_are_stored_with_their_signatures_and_names_are_unique() {
+        let (store, _d) = temp_store().await;
+        seed(&store, 3).await;
+        let c = store.campaign("c").await.unwrap().unwrap();
+        let t = &store.targets(c.id).await.unwrap()[0];
+        let units = store.target_units(t.id).await.unwrap();
+        assert_eq!(units.len(), 3);
+        for u in &units {
+            assert_eq!(u.signature, format!("sig-{}", u.id));
+            assert_eq!(u.spec().rect, u.rect);
+            assert_eq!((u.state.as_str(), u.need, u.active), ("open", 2, 0));
+        }
+        let new = NewCampaign {
+            name: "c".into(),
+            kernel: KERNEL_VERSION.into(),
+            bound: 1,
+            unit_seconds: 1.0,
+        };
+        assert!(matches!(
+            store
+                .create_campaign(&new, &[], &|_| String::new(), 0)
+                .await,
+            Err(StoreError::Conflict("campaign_exists", _))
+        ));
+        assert_eq!(store.schema_version().await.unwrap(), 1);
+    }
+
+    #[tokio::test]
+    async fn distinct_prefix_rule_keeps_one_network_off_both_leases() {
+        let (store, _d) = temp_store().await;
+        seed(&store, 1).await;
+        let (a, b, c) = (
+            worker(&store, "a", "k1").await,
+            worker(&store, "b", "k2").await,
+            worker(&store, "c", "k3").await,
+        );
+        let dl = |_: &UnitRow| 5000;
+        assert!(store
+            .grant_lease(&a, "10.0.0.0/24", true, 1000, &dl)
+            .await
+            .unwrap()
+            .is_some());
+        assert!(
+            store
+                .grant_lease(&b, "10.0.0.0/24", true, 1000, &dl)
+                .await
+                .unwrap()
+                .is_none(),
+            "same /24"
+        );
+        // Without the rule the same network is fine.
+        assert!(store
+            .grant_lease(&b, "10.0.0.0/24", false, 1000, &dl)
+            .await
+            .unwrap()
+            .is_some());
+        assert!(
+            store
+                .grant_lease(&c, "10.9.0.0/24", true, 1000, &dl)
+                .await
+                .unwrap()
+                .is_none(),
+            "two leases already"
+        );
+    }
+
+    #[tokio::test]
+    async fn acknowledged_reports_survive_a_reopen() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("c.db");
+        let unit_id;
+        {
+            let store = Store::open(&path, true).await.unwrap();
+            seed(&store, 1).await;
+            let (a, b) = (
+                worker(&store, "a", "k1").await,
+                worker(&store, "b", "k2").await,
+            );
+            let ga = store
+                .grant_lease(&a, "", false, 1000, &|_| 5000)
+                .await
+                .unwrap()
+                .unwrap();
+            let gb = store
+                .grant_lease(&b, "", false, 1000, &|_| 5000)
+                .await
+                .unwrap()
+                .unwrap();
+            unit_id = ga.unit.id;
+            // 33 has no small solutions; a made-up triple is fine at this level (the API verifies).
+            let s = vec![Solution::new(1, 2, 3)];
+            assert_eq!(
+                store
+                    .record_report(&report(&ga.lease, "h1", s.clone()), 3, 1100)
+                    .await
+                    .unwrap(),
+                ReportOutcome::Stored {
+                    unit_state: "open".into()
+                }
+            );
+            assert_eq!(
+                store
+                    .record_report(&report(&gb.lease, "h1", s), 3, 1200)
+                    .await
+                    .unwrap(),
+                ReportOutcome::Stored {
+                    unit_state: "settled".into()
+                }
+            );
+            // No close: as if the process died right after answering.
+        }
+        let store = Store::open(&path, false).await.unwrap();
+        let u = store.unit(unit_id).await.unwrap().unwrap();
+        assert_eq!(
+            (u.state.as_str(), u.reports, u.active, u.need),
+            ("settled", 2, 0, 0)
+        );
+        let t = store.targets(u.campaign_id).await.unwrap();
+        assert_eq!(
+            store.target_solutions(t[0].id).await.unwrap(),
+            vec![Solution::new(1, 2, 3)]
+        );
+        let w = store.worker(1).await.unwrap().unwrap();
+        assert_eq!((w.units_settled, w.work_us, w.wall_s), (1, 5_000_000, 100));
+        assert_eq!(w.observed_rate(), Some(0.05));
+    }
+
+    #[tokio::test]
+    async fn a_settlement_withdraws_the_other_leases_of_the_unit() {
+        let (store, _d) = temp_store().await;
+        seed(&store, 1).await;
+        let ws = [
+            worker(&store, "a", "k1").await,
+            worker(&store, "b", "k2").await,
+            worker(&store, "c", "k3").await,
+        ];
+        let g: Vec<Granted> = {
+            let mut v = Vec::new();
+            for w in &ws[..2] {
+                v.push(
+                    store
+                        .grant_lease(w, "", false, 1000, &|_| 5000)
+                        .await
+                        .unwrap()
+                        .unwrap(),
+                );
+            }
+            v
+        };
+        store
+            .record_report(&report(&g[0].lease, "x", vec![]), 3, 1001)
+            .await
+            .unwrap();
+        store
+            .record_report(&report(&g[1].lease, "y", vec![]), 3, 1002)
+            .await
+            .unwrap();
+        let gc = store
+            .grant_lease(&ws[2], "", false, 1003, &|_| 5000)
+            .await
+            .unwrap()
+            .unwrap();
+        // The outvoted worker's ally arrives first through a late path: settle with c = y.
+        store
+            .record_report(&report(&gc.lease, "y", vec![]), 3, 1004)
+            .await
+            .unwrap();
+        let u = store.unit(gc.unit.id).await.unwrap().unwrap();
+        assert_eq!((u.state.as_str(), u.active), ("settled", 0));
+        assert_eq!(store.worker(ws[0].id).await.unwrap().unwrap().errors, 1);
+        // Expiry of nothing changes nothing.
+        assert_eq!(store.expire_leases(1_000_000).await.unwrap(), 0);
+        assert_eq!(store.unit(u.id).await.unwrap().unwrap().active, 0);
     }
 }
