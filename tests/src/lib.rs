@@ -27,22 +27,63 @@ pub fn serial() -> std::sync::MutexGuard<'static, ()> {
 }
 
 /// A workspace binary, built next to the test executable (`target/<profile>/NAME`).
+///
+/// `cargo test` builds binaries only for the integration tests of their own package, so the
+/// first call in a test process runs `cargo build --bins` for the coordinator and the worker
+/// (a no-op when they are fresh), so that no test ever runs a stale binary.
 pub fn bin(name: &str) -> PathBuf {
     let exe = std::env::current_exe().expect("test executable path");
     // target/debug/deps/cubehunt_tests-HASH → target/debug
     let dir = exe
         .parent()
         .and_then(|p| p.parent())
-        .expect("target directory");
+        .expect("target directory")
+        .to_path_buf();
+    static BUILT: std::sync::Once = std::sync::Once::new();
+    BUILT.call_once(|| build_binaries(&dir));
     let p = dir.join(name);
     if !p.exists() {
         panic!(
-            "{} is missing: the cross-process tests need the workspace binaries; run `cargo test --workspace` \
-             (or `cargo build --workspace` first)",
+            "{} is missing: the cross-process tests need the workspace binaries; run \
+             `cargo build --workspace --bins` and then `cargo test --workspace`",
             p.display()
         );
     }
     p
+}
+
+fn build_binaries(dir: &Path) {
+    let cargo = std::env::var("CARGO")
+        .ok()
+        .or(option_env!("CARGO").map(String::from))
+        .unwrap_or_else(|| "cargo".into());
+    let manifest = Path::new(env!("CARGO_MANIFEST_DIR")).join("../Cargo.toml");
+    let mut cmd = Command::new(cargo);
+    cmd.args([
+        "build",
+        "--quiet",
+        "--bins",
+        "-p",
+        "cubehunt-coordinator",
+        "-p",
+        "cubehunt-worker",
+        "--manifest-path",
+    ])
+    .arg(&manifest);
+    if dir.file_name().and_then(|n| n.to_str()) == Some("release") {
+        cmd.arg("--release");
+    }
+    match cmd.output() {
+        Ok(o) if o.status.success() => {}
+        Ok(o) => panic!(
+            "building the workspace binaries failed:\n{}",
+            String::from_utf8_lossy(&o.stderr)
+        ),
+        Err(e) => eprintln!(
+            "could not run cargo to build the binaries ({e}); using what is in {}",
+            dir.display()
+        ),
+    }
 }
 
 /// A free TCP port on 127.0.0.1 (bound then released; good enough for tests).

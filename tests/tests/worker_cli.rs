@@ -162,9 +162,10 @@ fn the_pinned_coordinator_key_cannot_change_and_once_does_one_unit() {
         twin.worker_id, id,
         "B must know the worker under the same id for this check"
     );
+    let earlier = w.log_text().len();
     let mut w = Worker::start_in(&state, &b.url(), "yael", &["--max-backoff", "1"]).unwrap();
     let code = w.proc.wait_exit(Duration::from_secs(60)).unwrap();
-    let log = w.log_text();
+    let log = w.log_text()[earlier..].to_string();
     assert_ne!(code, 0, "{log}");
     assert!(
         log.contains("NOT signed by the pinned coordinator key"),

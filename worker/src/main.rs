@@ -90,6 +90,7 @@ Output as for solo (bound is z-max). Used to re-check a unit by hand and by audi
     Scan(local::ScanArgs),
     /// Donate this machine's idle time to a campaign: lease units from a coordinator,
     /// compute them at idle priority with checkpoints, return signed reports.
+    #[command(long_about = run::LONG_ABOUT, after_long_help = run::AFTER_HELP)]
     Run(run::RunArgs),
 }
 

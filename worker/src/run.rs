@@ -39,10 +39,8 @@ pub enum Priority {
     Normal,
 }
 
-/// Donate this machine's idle time to a campaign.
-#[derive(clap::Args, Debug, Clone)]
-#[command(
-    long_about = "Donate this machine's idle time to a cubehunt campaign.\n\n\
+/// Long help of `run` (also used by main.rs on the subcommand).
+pub const LONG_ABOUT: &str = "Donate this machine's idle time to a cubehunt campaign.\n\n\
 The worker makes its own Ed25519 key in --state-dir, enrols with the coordinator under \
 --owner, and then loops: lease a unit, check it (signed by the pinned coordinator key, \
 made for this kernel version, a valid rectangle), compute it chunk by chunk at idle \
@@ -51,8 +49,9 @@ computes and backs off (exponentially, with jitter) while the coordinator is unr
 Interrupting is safe at any moment. Ctrl-C or SIGTERM: the chunk in progress finishes, the \
 lease is handed back, exit 0 (a second Ctrl-C quits at once). Even after kill -9 or a power \
 cut, the next start resumes the same lease from its last finished chunk, and a finished \
-report is kept until the coordinator has answered for it.",
-    after_long_help = "STATE DIRECTORY (--state-dir):\n  \
+report is kept until the coordinator has answered for it.";
+
+pub const AFTER_HELP: &str = "STATE DIRECTORY (--state-dir):\n  \
 worker.key         this worker's private key (mode 0600; keep it, it is the worker's identity)\n  \
 worker.json        enrolment: worker id, owner, coordinator URL\n  \
 coordinator.key    the pinned coordinator public key\n  \
@@ -62,7 +61,13 @@ refused/           reports the coordinator refused, kept for the record\n\n\
 EXAMPLES:\n  \
 cubehunt-worker run --coordinator https://hunt.example.org --state-dir ~/.cubehunt --owner alice\n  \
 cubehunt-worker run --coordinator http://127.0.0.1:8080 --state-dir /var/lib/cubehunt \\\n      \
---owner lab-3 --threads 2 --cpu-percent 50 --coordinator-key 3f1c...e9"
+--owner lab-3 --threads 2 --cpu-percent 50 --coordinator-key 3f1c...e9";
+
+/// Donate this machine's idle time to a campaign.
+#[derive(clap::Args, Debug, Clone)]
+#[command(
+    long_about = LONG_ABOUT,
+    after_long_help = AFTER_HELP
 )]
 pub struct RunArgs {
     /// Base URL of the coordinator, e.g. http://127.0.0.1:8080
