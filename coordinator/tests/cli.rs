@@ -6,7 +6,10 @@
 use std::process::Command;
 
 fn coord(args: &[&str]) -> std::process::Output {
-    Command::new(env!("CARGO_BIN_EXE_cubehunt-coordinator")).args(args).output().expect("run cubehunt-coordinator")
+    Command::new(env!("CARGO_BIN_EXE_cubehunt-coordinator"))
+        .args(args)
+        .output()
+        .expect("run cubehunt-coordinator")
 }
 
 #[test]
@@ -30,7 +33,13 @@ fn wrong_arguments_are_refused_with_a_message() {
     // A data directory that does not exist is named in the error.
     let dir = tempfile::tempdir().unwrap();
     let missing = dir.path().join("absent");
-    let out = coord(&["serve", "--data-dir", missing.to_str().unwrap(), "--listen", "127.0.0.1:0"]);
+    let out = coord(&[
+        "serve",
+        "--data-dir",
+        missing.to_str().unwrap(),
+        "--listen",
+        "127.0.0.1:0",
+    ]);
     assert!(!out.status.success());
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("absent"), "error names the directory: {err}");

@@ -121,7 +121,11 @@ fn render(s: &Shared) -> String {
         human(total),
         human(rate),
         hms(secs as u64),
-        if done > 0.0 && done < total { hms(eta) } else { "?".into() }
+        if done > 0.0 && done < total {
+            hms(eta)
+        } else {
+            "?".into()
+        }
     )
 }
 

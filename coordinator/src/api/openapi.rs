@@ -6,7 +6,10 @@ use serde_json::{json, Value};
 
 pub async fn document() -> Json<Value> {
     let mut doc = spec();
-    if let (Some(paths), Value::Object(more)) = (doc["paths"].as_object_mut(), super::records::openapi_paths()) {
+    if let (Some(paths), Value::Object(more)) = (
+        doc["paths"].as_object_mut(),
+        super::records::openapi_paths(),
+    ) {
         paths.extend(more);
     }
     Json(doc)
