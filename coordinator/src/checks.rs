@@ -39,10 +39,13 @@ pub struct AuditArgs {
 
 #[derive(Debug, Args)]
 pub struct CertificateArgs {
+    /// Data directory of the coordinator (made by `init`).
     #[arg(long, env = "CUBEHUNT_DATA_DIR")]
     pub data_dir: PathBuf,
+    /// Campaign name.
     #[arg(long)]
     pub campaign: String,
+    /// The target: one value of k of that campaign.
     #[arg(long, allow_hyphen_values = true)]
     pub k: String,
     /// Certify up to this bound (default: the target's bound; an earlier bound of an
@@ -80,12 +83,16 @@ pub struct VerifyArgs {
 
 #[derive(Debug, Args)]
 pub struct ExportArgs {
+    /// Data directory of the coordinator (made by `init`).
     #[arg(long, env = "CUBEHUNT_DATA_DIR")]
     pub data_dir: PathBuf,
+    /// Campaign name.
     #[arg(long)]
     pub campaign: String,
+    /// What to export: the solutions, or the per-unit ledger (who computed what, when, with which digest).
     #[arg(long, value_enum)]
     pub what: What,
+    /// Output format.
     #[arg(long, value_enum, default_value = "csv")]
     pub format: Format,
     /// Write here (default: standard output).

@@ -25,11 +25,13 @@ struct Cli {
 enum Command {
     /// Create a data directory: database, coordinator key, admin token.
     Init {
+        /// Directory to create (must be absent or empty); it will hold the database, keys and token.
         #[arg(long)]
         data_dir: PathBuf,
     },
     /// Run the service on a data directory until SIGINT or SIGTERM.
     Serve {
+        /// Data directory made by `init`.
         #[arg(long, env = "CUBEHUNT_DATA_DIR")]
         data_dir: PathBuf,
         /// Address to listen on (port 0 picks a free one; the URL is written to <data-dir>/listen.url).

@@ -60,7 +60,7 @@ outbox/            signed reports not yet acknowledged (sent again on the next s
 refused/           reports the coordinator refused, kept for the record\n\n\
 EXAMPLES:\n  \
 cubehunt-worker run --coordinator https://hunt.example.org --state-dir ~/.cubehunt --owner alice\n  \
-cubehunt-worker run --coordinator http://127.0.0.1:8080 --state-dir /var/lib/cubehunt \\\n      \
+cubehunt-worker run --coordinator http://127.0.0.1:8480 --state-dir /var/lib/cubehunt \\\n      \
 --owner lab-3 --threads 2 --cpu-percent 50 --coordinator-key 3f1c...e9";
 
 /// Donate this machine's idle time to a campaign.
@@ -70,7 +70,7 @@ cubehunt-worker run --coordinator http://127.0.0.1:8080 --state-dir /var/lib/cub
     after_long_help = AFTER_HELP
 )]
 pub struct RunArgs {
-    /// Base URL of the coordinator, e.g. http://127.0.0.1:8080
+    /// Base URL of the coordinator, e.g. http://127.0.0.1:8480
     #[arg(long, value_name = "URL")]
     pub coordinator: String,
     /// Directory for this worker's key, enrolment, checkpoints and unsent reports (created if missing).
