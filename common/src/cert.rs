@@ -24,7 +24,7 @@
 //! Units are sorted by id (ids are unique). Leaf `i` is the UTF-8 text
 //!
 //! ```text
-//! cubehunt-cert-unit/1\nid=<id>\nregion=<small|equal|main>\nd=<d_lo>..<d_hi>\nz=<z_lo>..<z_hi>\ndigest=<digest text>\nsettled_by=<worker>:<owner JSON string>,…\n
+//! cubehunt-cert-unit/2\nid=<id>\nregion=<small|equal|main>\nd=<d_lo>..<d_hi>\nz=<z_lo>..<z_hi>\ndigest=<digest text>\nrechecked=<true|false>\nsettled_by=<worker>:<owner JSON string>,…\n
 //! ```
 //!
 //! (`settled_by` in document order, which is ascending worker id). The tree is the Merkle
@@ -51,12 +51,12 @@
 //! its bound.
 
 use crate::tiling::{self, Geometry, Tile};
-use crate::{kernel, sign, Digest, Rect, Region, Solution, KERNEL_VERSION};
+use crate::{kernel, merkle, sign, Digest, Rect, Region, Solution, KERNEL_VERSION};
 use serde::{Deserialize, Serialize};
 use sha2::{Digest as _, Sha256};
 use std::fmt::{self, Write as _};
 
-pub const FORMAT: &str = "cubehunt-certificate/1";
+pub const FORMAT: &str = "cubehunt-certificate/2";
 
 /// A worker whose report settled a unit.
 #[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -70,22 +70,13 @@ pub struct Settler {
 pub struct CertUnit {
     pub id: i64,
     pub rect: Rect,
-    #[serde(with = "digest_text")]
+    #[serde(with = "crate::digest::text")]
     pub digest: Digest,
-    #[serde(default)]
+    /// The workers whose agreeing reports settled the unit: of at least two owners, none
+    /// quarantined when the certificate was issued.
     pub settled_by: Vec<Settler>,
-}
-
-mod digest_text {
-    use crate::Digest;
-    use serde::{Deserialize, Deserializer, Serializer};
-    pub fn serialize<S: Serializer>(d: &Digest, s: S) -> Result<S::Ok, S::Error> {
-        s.collect_str(d)
-    }
-    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Digest, D::Error> {
-        let s = String::deserialize(d)?;
-        s.parse().map_err(serde::de::Error::custom)
-    }
+    /// Whether the organiser's side recomputed the unit in full and found the settled digest.
+    pub rechecked: bool,
 }
 
 impl CertUnit {
@@ -93,8 +84,8 @@ impl CertUnit {
     pub fn leaf_bytes(&self) -> Vec<u8> {
         let r = &self.rect;
         let mut s = format!(
-            "cubehunt-cert-unit/1\nid={}\nregion={}\nd={}..{}\nz={}..{}\ndigest={}\nsettled_by=",
-            self.id, r.region, r.d_lo, r.d_hi, r.z_lo, r.z_hi, self.digest
+            "cubehunt-cert-unit/2\nid={}\nregion={}\nd={}..{}\nz={}..{}\ndigest={}\nrechecked={}\nsettled_by=",
+            self.id, r.region, r.d_lo, r.d_hi, r.z_lo, r.z_hi, self.digest, self.rechecked
         );
         for (i, w) in self.settled_by.iter().enumerate() {
             if i > 0 {
@@ -127,37 +118,13 @@ pub struct Certificate {
     pub signature: String,
 }
 
-/// The Merkle root (RFC 6962 §2.1, SHA-256) over the units in the given order.
+/// The Merkle root (RFC 6962 §2.1, SHA-256; [`crate::merkle`]) over the units in the given order.
 pub fn merkle_root(units: &[CertUnit]) -> [u8; 32] {
-    let leaves: Vec<[u8; 32]> = units
+    let leaves: Vec<merkle::Hash> = units
         .iter()
-        .map(|u| {
-            let mut h = Sha256::new();
-            h.update([0u8]);
-            h.update(u.leaf_bytes());
-            h.finalize().into()
-        })
+        .map(|u| merkle::leaf_hash(&u.leaf_bytes()))
         .collect();
-    mth(&leaves)
-}
-
-fn mth(leaves: &[[u8; 32]]) -> [u8; 32] {
-    match leaves.len() {
-        0 => Sha256::digest([]).into(),
-        1 => leaves[0],
-        n => {
-            let k = if n.is_power_of_two() {
-                n / 2
-            } else {
-                1 << (usize::BITS - 1 - n.leading_zeros())
-            };
-            let mut h = Sha256::new();
-            h.update([1u8]);
-            h.update(mth(&leaves[..k]));
-            h.update(mth(&leaves[k..]));
-            h.finalize().into()
-        }
-    }
+    merkle::root(&leaves)
 }
 
 /// Whether a unit meets the regions of target `k` up to `bound` (and so belongs in the
@@ -468,6 +435,10 @@ pub struct VerifyOptions {
     pub seed: u64,
     /// Threads for the recheck (0 = all cores).
     pub threads: usize,
+    /// Recompute the counts (d values, classes, candidates) of this fraction of the
+    /// main-region units whose counts are cheap to derive ([`kernel::counts`]); the small and
+    /// equal regions' counts are closed forms and always recomputed.
+    pub counts: f64,
 }
 
 /// Check a certificate offline: format, signature, each solution's arithmetic and bound, that
@@ -490,7 +461,12 @@ pub fn verify_certificate_with(
         None
     };
     let rect_check = |r: &Rect| kernel::check_rect(doc.k, r).map_err(|e| e.to_string());
-    verify_impl(doc, opts, target, geom.as_ref(), &rect_check)
+    let counted = if target.is_ok() {
+        recount(doc, opts)
+    } else {
+        Vec::new()
+    };
+    verify_impl(doc, opts, target, geom.as_ref(), &rect_check, counted)
 }
 
 /// The checks, with the kernel's geometry passed in (so that they can be tested against an
@@ -501,6 +477,7 @@ fn verify_impl(
     target_check: Result<(), String>,
     geom: Option<&Geometry>,
     rect_check: &dyn Fn(&Rect) -> Result<(), String>,
+    counted: Vec<Finding>,
 ) -> Result<Summary, Vec<Finding>> {
     let mut f: Vec<Finding> = Vec::new();
     let target = format!("k = {}", doc.k);
@@ -643,6 +620,27 @@ fn verify_impl(
         }
     }
 
+    // Settlers: every unit rests on reports of at least two distinct owners.
+    for u in &doc.units {
+        let owners: std::collections::BTreeSet<&str> =
+            u.settled_by.iter().map(|s| s.owner.as_str()).collect();
+        if owners.len() < 2 {
+            f.push(Finding::error(
+                "settlers",
+                format!("unit {}", u.id),
+                format!(
+                    "settled by {} distinct owner(s); a unit needs agreeing reports of at least two",
+                    owners.len()
+                ),
+            ));
+        }
+    }
+
+    // Counts, recomputed by the caller (they need the real kernel).
+    if target_ok {
+        f.extend(counted);
+    }
+
     // Recheck.
     let mut rechecked = 0;
     if opts.recheck > 0.0 && target_ok {
@@ -696,6 +694,42 @@ fn verify_impl(
         rechecked,
         warnings,
     })
+}
+
+/// Recompute the counts every unit's digest carries where that is cheap (see
+/// [`VerifyOptions::counts`]) and compare.
+fn recount(doc: &Certificate, opts: &VerifyOptions) -> Vec<Finding> {
+    let main: Vec<i64> = doc
+        .units
+        .iter()
+        .filter(|u| u.rect.region == crate::Region::Main)
+        .map(|u| u.id)
+        .collect();
+    let sampled: std::collections::BTreeSet<i64> = sample(&main, opts.counts, opts.seed)
+        .into_iter()
+        .map(|i| main[i])
+        .collect();
+    let mut f = Vec::new();
+    for u in &doc.units {
+        if u.rect.region == crate::Region::Main && !sampled.contains(&u.id) {
+            continue;
+        }
+        let Some(want) = kernel::counts(doc.k, &u.rect) else {
+            continue;
+        };
+        let d = &u.digest;
+        if (d.d_values, d.classes, d.candidates) != (want.d_values, want.classes, want.candidates) {
+            f.push(Finding::error(
+                "counts",
+                format!("unit {}", u.id),
+                format!(
+                    "the digest's counts (d values, classes, candidates) are ({}, {}, {}); the rectangle has ({}, {}, {})",
+                    d.d_values, d.classes, d.candidates, want.d_values, want.classes, want.candidates
+                ),
+            ));
+        }
+    }
+    f
 }
 
 /// Re-run one unit with the local kernel and compare its digest with `expected`; every
@@ -777,7 +811,7 @@ mod tests {
             pinned_key: pinned.map(str::to_string),
             ..Default::default()
         };
-        verify_impl(doc, &opts, Ok(()), Some(&geom), &|_| Ok(()))
+        verify_impl(doc, &opts, Ok(()), Some(&geom), &|_| Ok(()), Vec::new())
     }
 
     fn units(k: i64, bound: u64) -> Vec<CertUnit> {
@@ -803,6 +837,7 @@ mod tests {
                         owner: "ana".into(),
                     },
                 ],
+                rechecked: false,
             })
             .collect()
     }
@@ -1024,7 +1059,7 @@ mod tests {
         }
         assert_eq!(
             String::from_utf8(us[0].leaf_bytes()).unwrap(),
-            "cubehunt-cert-unit/1\nid=1\nregion=small\nd=0..0\nz=0..5\ndigest=h0000000000009e37-d1-r2-c11-s1\nsettled_by=2:\"bea\",1:\"ana\"\n"
+            "cubehunt-cert-unit/2\nid=1\nregion=small\nd=0..0\nz=0..5\ndigest=h0000000000009e37-d1-r2-c11-s1\nrechecked=false\nsettled_by=2:\"bea\",1:\"ana\"\n"
         );
     }
 
@@ -1122,7 +1157,17 @@ mod tests {
                     id: first_id + i as i64,
                     rect,
                     digest: out.digest,
-                    settled_by: vec![],
+                    settled_by: vec![
+                        Settler {
+                            worker: 1,
+                            owner: "ana".into(),
+                        },
+                        Settler {
+                            worker: 2,
+                            owner: "bea".into(),
+                        },
+                    ],
+                    rechecked: false,
                 }
             })
             .collect()

@@ -8,7 +8,9 @@ use serde::{Deserialize, Serialize};
 use std::fmt;
 use std::str::FromStr;
 
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[derive(
+    Clone, Copy, Debug, Default, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize,
+)]
 pub struct Digest {
     /// `d` values visited (main region); `z` values visited in the small and equal regions.
     pub d_values: u64,
@@ -98,6 +100,75 @@ impl FromStr for Digest {
         })
     }
 }
+
+/// Serde helpers: a digest as its text form (`#[serde(with = "digest::text")]`).
+pub mod text {
+    use super::Digest;
+    use serde::{Deserialize, Deserializer, Serializer};
+    pub fn serialize<S: Serializer>(d: &Digest, s: S) -> Result<S::Ok, S::Error> {
+        s.collect_str(d)
+    }
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Digest, D::Error> {
+        let s = <std::borrow::Cow<'de, str>>::deserialize(d)?;
+        if s.len() > super::MAX_TEXT_LEN {
+            return Err(serde::de::Error::custom("digest text too long"));
+        }
+        s.parse().map_err(serde::de::Error::custom)
+    }
+}
+
+/// Serde helpers: a list of digests as a list of text forms, at most
+/// [`crate::pieces::MAX_PIECES`] long (`#[serde(with = "digest::text_list")]`).
+pub mod text_list {
+    use super::Digest;
+    use serde::de::{SeqAccess, Visitor};
+    use serde::ser::SerializeSeq;
+    use serde::{Deserializer, Serializer};
+    use std::fmt;
+
+    pub fn serialize<S: Serializer>(v: &[Digest], s: S) -> Result<S::Ok, S::Error> {
+        let mut seq = s.serialize_seq(Some(v.len()))?;
+        for d in v {
+            seq.serialize_element(&d.to_string())?;
+        }
+        seq.end()
+    }
+
+    struct ListVisitor;
+    impl<'de> Visitor<'de> for ListVisitor {
+        type Value = Vec<Digest>;
+        fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+            write!(
+                f,
+                "a list of at most {} digests in text form",
+                crate::pieces::MAX_PIECES
+            )
+        }
+        fn visit_seq<A: SeqAccess<'de>>(self, mut seq: A) -> Result<Vec<Digest>, A::Error> {
+            let max = crate::pieces::MAX_PIECES as usize;
+            let mut out = Vec::with_capacity(seq.size_hint().unwrap_or(0).min(max));
+            while let Some(s) = seq.next_element::<std::borrow::Cow<'de, str>>()? {
+                if out.len() == max {
+                    return Err(serde::de::Error::custom(format!(
+                        "more than {max} piece digests"
+                    )));
+                }
+                if s.len() > super::MAX_TEXT_LEN {
+                    return Err(serde::de::Error::custom("digest text too long"));
+                }
+                out.push(s.parse().map_err(serde::de::Error::custom)?);
+            }
+            Ok(out)
+        }
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Vec<Digest>, D::Error> {
+        d.deserialize_seq(ListVisitor)
+    }
+}
+
+/// Longest text form: `h` + 16 hex + four counts of at most 20 digits with their tags.
+pub const MAX_TEXT_LEN: usize = 17 + 4 * 22;
 
 #[cfg(test)]
 mod tests {

@@ -6,6 +6,8 @@
 //! * [`report`] — what a worker returns for a lease, and its canonical encoding.
 //! * [`sign`] — Ed25519 keys, signatures over canonical bytes, signed HTTP requests.
 //! * [`protocol`] — the JSON bodies exchanged between worker and coordinator.
+//! * [`pieces`] — the fixed split of a unit into the pieces a report commits to.
+//! * [`merkle`] — RFC 6962 Merkle trees and audit paths (certificates, piece commitments).
 //! * [`tiling`] — does a set of rectangles cover the three regions completely?
 //! * [`cert`] — coverage certificates: the signed document and its offline check.
 //!
@@ -15,7 +17,9 @@
 pub mod cert;
 pub mod digest;
 pub mod kernel;
+pub mod merkle;
 pub mod numarg;
+pub mod pieces;
 pub mod protocol;
 pub mod report;
 pub mod sign;

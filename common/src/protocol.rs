@@ -2,6 +2,7 @@
 //!
 //! | call | body → answer |
 //! |---|---|
+//! | `GET /api/v1/about` (not signed) | → [`About`] |
 //! | `POST /api/v1/enrol` (signed with the new key; header worker id `0`) | [`EnrolRequest`] → [`EnrolResponse`] |
 //! | `POST /api/v1/lease` (signed) | [`LeaseRequest`] → [`LeaseResponse`] |
 //! | `POST /api/v1/lease/{lease_id}/heartbeat` (signed) | [`HeartbeatRequest`] → [`HeartbeatResponse`] |
@@ -22,18 +23,34 @@ pub const MAX_SOLUTIONS_PER_REPORT: usize = 1000;
 /// Longest owner name.
 pub const MAX_OWNER_LEN: usize = 64;
 
+/// What a worker needs before it can sign its first request.
 #[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct About {
+    /// The coordinator's public key, 64 hex characters (pin it; every signed request names it).
+    pub coordinator_key: String,
+    /// The kernel version this coordinator's build runs.
+    pub kernel: String,
+    /// `open` (anyone may enrol) or `invite` (an enrolment needs an invitation).
+    pub enrolment: String,
+}
+
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct EnrolRequest {
-    /// The volunteer this worker belongs to: 1–64 characters of `[A-Za-z0-9._-]`.
+    /// The volunteer this worker belongs to: 1–64 characters of `[A-Za-z0-9._-]`, compared
+    /// without regard to case (stored in lower case).
     pub owner: String,
     /// The worker's Ed25519 public key, 64 hex characters.
     pub public_key: String,
     /// Kernel version the worker runs ([`crate::KERNEL_VERSION`]).
     pub kernel: String,
     pub threads: u32,
-    /// Free-form label for monitoring (host name); at most 64 characters.
+    /// Free-form label for monitoring; at most 64 characters.
     #[serde(default)]
     pub label: String,
+    /// The invitation the organiser gave this volunteer, when enrolment is by invitation.
+    #[serde(default)]
+    pub invite: Option<String>,
 }
 
 #[derive(Clone, Debug, Serialize, Deserialize)]
@@ -44,6 +61,7 @@ pub struct EnrolResponse {
 }
 
 #[derive(Clone, Debug, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct LeaseRequest {
     /// Threads the worker will use on the unit (for the deadline estimate).
     #[serde(default)]
@@ -69,6 +87,7 @@ pub struct LeaseResponse {
 }
 
 #[derive(Clone, Debug, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct HeartbeatRequest {
     /// Fraction of the unit done, 0..=1 (informational).
     #[serde(default)]

@@ -3,11 +3,13 @@
 //! Keys are stored as 64 hex characters (the 32-byte seed or public key) in a file of their
 //! own. Signatures travel as 128 hex characters.
 //!
-//! A worker request is authenticated by three headers: [`HDR_WORKER`] (its id),
-//! [`HDR_TIME`] (unix seconds) and [`HDR_SIGNATURE`], a signature over
-//! [`request_bytes`]`(method, path, time, body)`. The coordinator refuses a time more than
-//! [`MAX_CLOCK_SKEW_S`] away from its own clock; replays inside that window are harmless
-//! because every state change is keyed by lease and is idempotent.
+//! A worker request is authenticated by four headers: [`HDR_WORKER`] (its id, `0` for an
+//! enrolment), [`HDR_TIME`] (unix seconds), [`HDR_NONCE`] (32 hex characters, fresh for every
+//! request) and [`HDR_SIGNATURE`], a signature over [`request_bytes`]. The signed bytes name
+//! the coordinator's public key and the worker id, so a request signed for one coordinator
+//! or one worker is worthless to another. The coordinator refuses a time more than
+//! [`MAX_CLOCK_SKEW_S`] away from its own clock and remembers every nonce for longer than
+//! that window, so a captured request can be sent only once.
 
 use ed25519_dalek::{Signature, Signer, SigningKey, VerifyingKey};
 use sha2::{Digest as _, Sha256};
@@ -17,6 +19,7 @@ pub use ed25519_dalek::{SigningKey as SecretKey, VerifyingKey as PublicKey};
 pub const HDR_WORKER: &str = "x-cubehunt-worker";
 pub const HDR_TIME: &str = "x-cubehunt-time";
 pub const HDR_SIGNATURE: &str = "x-cubehunt-signature";
+pub const HDR_NONCE: &str = "x-cubehunt-nonce";
 pub const MAX_CLOCK_SKEW_S: i64 = 300;
 
 #[derive(Debug, thiserror::Error)]
@@ -74,14 +77,47 @@ pub fn verify(key: &VerifyingKey, msg: &[u8], sig_hex: &str) -> Result<(), SignE
     Ok(())
 }
 
+/// What a signed request says about itself, besides its method, path and body.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Stamp {
+    /// Hex public key of the coordinator the request is meant for.
+    pub coordinator: String,
+    pub worker: i64,
+    pub time: i64,
+    /// 32 lowercase hex characters, never used twice by one worker.
+    pub nonce: String,
+}
+
+impl Stamp {
+    /// A fresh stamp: random nonce, the given time.
+    pub fn new(coordinator: &str, worker: i64, time: i64) -> Stamp {
+        let mut b = [0u8; 16];
+        rand_core::RngCore::fill_bytes(&mut rand_core::OsRng, &mut b);
+        Stamp {
+            coordinator: coordinator.to_ascii_lowercase(),
+            worker,
+            time,
+            nonce: hex::encode(b),
+        }
+    }
+}
+
+/// Whether a nonce has the required form (32 lowercase hex characters).
+pub fn nonce_well_formed(n: &str) -> bool {
+    n.len() == 32 && n.bytes().all(|b| matches!(b, b'0'..=b'9' | b'a'..=b'f'))
+}
+
 /// The bytes a worker signs for one HTTP request.
-pub fn request_bytes(method: &str, path: &str, time: i64, body: &[u8]) -> Vec<u8> {
+pub fn request_bytes(stamp: &Stamp, method: &str, path: &str, body: &[u8]) -> Vec<u8> {
     let h = Sha256::digest(body);
     format!(
-        "cubehunt-request/1\n{}\n{}\n{}\n{}\n",
+        "cubehunt-request/2\ncoordinator={}\nworker={}\ntime={}\nnonce={}\n{}\n{}\n{}\n",
+        stamp.coordinator,
+        stamp.worker,
+        stamp.time,
+        stamp.nonce,
         method.to_ascii_uppercase(),
         path,
-        time,
         hex::encode(h)
     )
     .into_bytes()
@@ -108,5 +144,35 @@ mod tests {
         assert_eq!(k2.to_bytes(), k.to_bytes());
         let p = public_from_hex(&public_to_hex(&k.verifying_key())).unwrap();
         assert_eq!(p, k.verifying_key());
+    }
+    #[test]
+    fn request_bytes_name_coordinator_worker_and_nonce() {
+        let a = Stamp::new("AB", 3, 100);
+        assert!(nonce_well_formed(&a.nonce));
+        assert_ne!(a.nonce, Stamp::new("ab", 3, 100).nonce);
+        let base = request_bytes(&a, "post", "/p", b"{}");
+        for other in [
+            Stamp {
+                coordinator: "cd".into(),
+                ..a.clone()
+            },
+            Stamp {
+                worker: 4,
+                ..a.clone()
+            },
+            Stamp {
+                time: 101,
+                ..a.clone()
+            },
+            Stamp {
+                nonce: "0".repeat(32),
+                ..a.clone()
+            },
+        ] {
+            assert_ne!(request_bytes(&other, "POST", "/p", b"{}"), base);
+        }
+        assert_eq!(request_bytes(&a, "POST", "/p", b"{}"), base);
+        assert!(!nonce_well_formed("ABCDEF0123456789abcdef0123456789"));
+        assert!(!nonce_well_formed("abc"));
     }
 }

@@ -4,6 +4,7 @@
 //! Values are held as `i128`: within the supported range (|z| < 2⁶³) the larger coordinates
 //! stay below 2⁹⁶ in absolute value. Verification never trusts `i128` arithmetic: it uses GMP.
 
+use crate::{Rect, Region};
 use rug::{ops::Pow, Integer};
 use serde::{Deserialize, Serialize};
 use std::fmt;
@@ -29,6 +30,29 @@ impl Solution {
     /// Smallest absolute value of the three coordinates (the one the bound applies to).
     pub fn min_abs(&self) -> u128 {
         self.0.iter().map(|v| v.unsigned_abs()).min().unwrap()
+    }
+
+    /// Whether a verified solution lies in a rectangle: its smallest coordinate `z` (any of them
+    /// on a tie) has `|z|` in `(z_lo, z_hi]` (`z = 0` too for the small region's first piece),
+    /// and in the main region `d = |x + y|` of the other two is in `[d_lo, d_hi)`; in the equal
+    /// region the other smallest coordinate equals `z`.
+    pub fn in_rect(&self, r: &Rect) -> bool {
+        let v = self.0;
+        let m = self.min_abs();
+        (0..3).filter(|&i| v[i].unsigned_abs() == m).any(|i| {
+            let z = v[i];
+            let az = z.unsigned_abs();
+            let others: Vec<i128> = (0..3).filter(|&j| j != i).map(|j| v[j]).collect();
+            let in_z = az > r.z_lo as u128 && az <= r.z_hi as u128;
+            match r.region {
+                Region::Small => in_z || (z == 0 && r.z_lo == 0),
+                Region::Equal => in_z && others.contains(&z),
+                Region::Main => {
+                    let d = (others[0] + others[1]).unsigned_abs();
+                    in_z && d >= r.d_lo as u128 && d < r.d_hi as u128
+                }
+            }
+        })
     }
 
     pub fn to_strings(&self) -> [String; 3] {
@@ -106,5 +130,64 @@ mod tests {
             let v: Vec<String> = bad.iter().map(|s| s.to_string()).collect();
             assert!(Solution::parse(&v).is_err(), "{bad:?}");
         }
+    }
+}
+
+#[cfg(test)]
+mod rect_tests {
+    use super::*;
+    use crate::{Rect, Region};
+    #[test]
+    fn solutions_are_placed_in_their_rectangle() {
+        // 33 = 8866128975287528³ + (−8778405442862239)³ + (−2736111468807040)³ (Booker 2019,
+        // "Cracking the problem with 33", Research in Number Theory 5, art. 26). Smallest is
+        // z = −2736111468807040; d = |x + y| = 87723532425289.
+        let s = Solution::new(8866128975287528, -8778405442862239, -2736111468807040);
+        let z = 2736111468807040u64;
+        let d = 87723532425289u64;
+        let main = |d_lo, d_hi, z_lo, z_hi| Rect {
+            region: Region::Main,
+            d_lo,
+            d_hi,
+            z_lo,
+            z_hi,
+        };
+        assert!(s.in_rect(&main(d, d + 1, z - 1, z)));
+        assert!(!s.in_rect(&main(d + 1, d + 2, z - 1, z)));
+        assert!(!s.in_rect(&main(d, d + 1, z, z + 5)));
+        assert!(!s.in_rect(&Rect {
+            region: Region::Small,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo: 0,
+            z_hi: 100
+        }));
+        // 3 = 1³ + 1³ + 1³ and 3 = 4³ + 4³ + (−5)³ (common practice, no source): the equal region.
+        let e = Solution::new(4, 4, -5);
+        let eq = |z_lo, z_hi| Rect {
+            region: Region::Equal,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo,
+            z_hi,
+        };
+        assert!(e.in_rect(&eq(1, 4)));
+        assert!(!e.in_rect(&eq(4, 10)));
+        // 2 = 1³ + 1³ + 0³: z = 0 belongs to the small region's first piece only.
+        let s0 = Solution::new(1, 1, 0);
+        assert!(s0.in_rect(&Rect {
+            region: Region::Small,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo: 0,
+            z_hi: 1
+        }));
+        assert!(!s0.in_rect(&Rect {
+            region: Region::Small,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo: 1,
+            z_hi: 2
+        }));
     }
 }

@@ -70,9 +70,15 @@ pub struct VerifyArgs {
     /// Seed of the recheck sample (default: random; printed either way).
     #[arg(long)]
     pub seed: Option<u64>,
-    /// Refuse unless the certificate is signed by this coordinator key (64 hex).
+    /// Refuse unless the certificate is signed by this coordinator key (64 hex). Without it
+    /// a warning is printed: anyone can sign a consistent certificate with a key of their own.
     #[arg(long)]
     pub key: Option<String>,
+    /// Recompute the counts (d values, classes, candidates) of this fraction of the main
+    /// region's units where that is cheap (0..=1); the small and equal regions' counts are
+    /// always recomputed.
+    #[arg(long, default_value = "0.01", value_parser = parse_fraction)]
+    pub counts: f64,
     /// Threads for the recheck (0 = all cores).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
@@ -246,7 +252,13 @@ pub async fn run_verify(a: VerifyArgs) -> Result<i32> {
         recheck: a.recheck,
         seed,
         threads: a.threads,
+        counts: a.counts,
     };
+    if a.key.is_none() {
+        eprintln!(
+            "warning: no --key given: this checks that the certificate is consistent and signed by the key it names, not that it is the coordinator's you trust; pass --key with the coordinator's published key"
+        );
+    }
     let res =
         tokio::task::spawn_blocking(move || cert::verify_certificate_with(&doc, &opts)).await?;
     match res {

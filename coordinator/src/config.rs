@@ -1,12 +1,33 @@
 //! Service settings of `serve` (command-line flags, each with an environment variable).
 
+use crate::lifecycle::Rules;
+use crate::store::LeasePolicy;
 use clap::Args;
 
-/// Settings of the running service. Defaults suit a small fleet.
+/// How new workers may enrol.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
+pub enum Enrolment {
+    /// Anyone with the coordinator's address may enrol a worker under any owner name.
+    Open,
+    /// A new worker needs an invitation issued by the organiser (`invite create`), which
+    /// fixes its owner.
+    Invite,
+}
+
+impl Enrolment {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Enrolment::Open => "open",
+            Enrolment::Invite => "invite",
+        }
+    }
+}
+
+/// Settings of the running service. Defaults suit a campaign of thousands of workers.
 #[derive(Clone, Debug, Args)]
 pub struct ServiceConfig {
     /// Workers must heartbeat at least this often (seconds); a heartbeat extends the lease to
-    /// three times this from now.
+    /// three times this from now, within the lease's limit.
     #[arg(long, env = "CUBEHUNT_HEARTBEAT_S", default_value_t = 60)]
     pub heartbeat_s: u64,
     /// Shortest lease deadline (seconds from hand-out).
@@ -18,14 +39,59 @@ pub struct ServiceConfig {
     /// A lease lasts this many times the unit's expected time on the worker.
     #[arg(long, env = "CUBEHUNT_DEADLINE_FACTOR", default_value_t = 4.0)]
     pub deadline_factor: f64,
-    /// Wrong reports after which a worker is quarantined.
+    /// Heartbeats extend a lease to at most this many times the unit's expected time on the
+    /// worker, from hand-out (then it expires however often the worker calls).
+    #[arg(long, env = "CUBEHUNT_LEASE_LIMIT_FACTOR", default_value_t = 12.0)]
+    pub lease_limit_factor: f64,
+    /// Outvoted reports after which a worker is quarantined (a report proven wrong by the
+    /// organiser's own computation quarantines at once).
     #[arg(long, env = "CUBEHUNT_QUARANTINE_AFTER", default_value_t = 3)]
     pub quarantine_after: u32,
+    /// A report proven wrong quarantines every worker of its owner, not only its own.
+    #[arg(long, env = "CUBEHUNT_QUARANTINE_OWNER", default_value_t = true, action = clap::ArgAction::Set)]
+    pub quarantine_owner: bool,
+    /// Pieces of every report that the coordinator recomputes itself. A report that invented
+    /// a share q of its unit escapes with probability (1 − q)^N.
+    #[arg(long, env = "CUBEHUNT_SPOT_CHECKS", default_value_t = 2, value_parser = clap::value_parser!(u32).range(0..=64))]
+    pub spot_checks: u32,
+    /// Share of units (0 to 1) that the organiser's side recomputes in full; drawn at random
+    /// when a campaign is planned and never shown to workers.
+    #[arg(long, env = "CUBEHUNT_RECHECK_SHARE", default_value_t = 0.02, value_parser = parse_share)]
+    pub recheck_share: f64,
+    /// Counted reports a unit takes without agreement before the organiser's side
+    /// recomputes it.
+    #[arg(long, env = "CUBEHUNT_MAX_REPORTS", default_value_t = 5, value_parser = clap::value_parser!(u32).range(2..=100))]
+    pub max_reports: u32,
+    /// Reports confirmed by the organiser's own computation that a new worker needs before
+    /// it gets ordinary units (0: no probation).
+    #[arg(long, env = "CUBEHUNT_PROBATION_REPORTS", default_value_t = 2)]
+    pub probation_reports: u32,
+    /// Most active leases of one worker, per thread it runs.
+    #[arg(long, env = "CUBEHUNT_LEASES_PER_THREAD", default_value_t = 2, value_parser = clap::value_parser!(u32).range(1..=64))]
+    pub leases_per_thread: u32,
+    /// Most active leases of one owner, over all its workers.
+    #[arg(long, env = "CUBEHUNT_LEASES_PER_OWNER", default_value_t = 256, value_parser = clap::value_parser!(u32).range(1..))]
+    pub leases_per_owner: u32,
+    /// An offer (a unit's further lease reserved for a randomly drawn worker) lapses after
+    /// this many seconds if the worker has not asked for work.
+    #[arg(long, env = "CUBEHUNT_OFFER_S", default_value_t = 300)]
+    pub offer_s: u64,
+    /// Workers seen within this many seconds can be drawn for offers.
+    #[arg(long, env = "CUBEHUNT_ACTIVE_WINDOW_S", default_value_t = 900)]
+    pub active_window_s: u64,
+    /// How new workers may enrol.
+    #[arg(long, env = "CUBEHUNT_ENROLMENT", value_enum, default_value_t = Enrolment::Open)]
+    pub enrolment: Enrolment,
+    /// Threads the coordinator spends on its own computations (spot checks and rechecks), at
+    /// idle priority. 0: none (then only workers marked trusted can do them, and a target's
+    /// certificate waits until they have).
+    #[arg(long, env = "CUBEHUNT_CHECKER_THREADS", default_value_t = 1, value_parser = clap::value_parser!(u32).range(0..=256))]
+    pub checker_threads: u32,
     /// Also require the leases of one unit to come from different network prefixes
     /// (/24 for IPv4, /48 for IPv6).
     #[arg(long, env = "CUBEHUNT_DISTINCT_PREFIX", default_value_t = false)]
     pub distinct_prefix: bool,
-    /// Seconds between sweeps that expire overdue leases.
+    /// Seconds between sweeps that expire overdue leases and draw offers.
     #[arg(long, env = "CUBEHUNT_SWEEP_S", default_value_t = 30)]
     pub sweep_s: u64,
     /// Most units one campaign may plan (creation or extension).
@@ -36,19 +102,26 @@ pub struct ServiceConfig {
     pub retry_after_s: u64,
 }
 
+fn parse_share(s: &str) -> Result<f64, String> {
+    let v: f64 = s
+        .trim()
+        .parse()
+        .map_err(|_| format!("{s:?} is not a number between 0 and 1"))?;
+    if !(0.0..=1.0).contains(&v) {
+        return Err(format!("{v} is not between 0 and 1"));
+    }
+    Ok(v)
+}
+
 impl Default for ServiceConfig {
     fn default() -> Self {
-        ServiceConfig {
-            heartbeat_s: 60,
-            lease_floor_s: 300,
-            lease_ceiling_s: 7 * 86400,
-            deadline_factor: 4.0,
-            quarantine_after: 3,
-            distinct_prefix: false,
-            sweep_s: 30,
-            max_units: 2_000_000,
-            retry_after_s: 30,
+        use clap::Parser;
+        #[derive(Parser)]
+        struct P {
+            #[command(flatten)]
+            c: ServiceConfig,
         }
+        P::parse_from(["x"]).c
     }
 }
 
@@ -58,17 +131,33 @@ impl ServiceConfig {
         3 * self.heartbeat_s.max(1) as i64
     }
 
-    /// Deadline of a lease on a unit of estimated `cost_us` (reference-core µs) for a worker
-    /// whose observed speed is `rate` reference-core seconds per second (`None`: not yet
-    /// observed; assume one reference core).
-    pub fn deadline(&self, now: i64, cost_us: u64, rate: Option<f64>) -> i64 {
-        let rate = rate.filter(|r| r.is_finite() && *r > 0.0).unwrap_or(1.0);
-        let expected = cost_us as f64 / 1e6 / rate;
-        let secs = (expected * self.deadline_factor).clamp(
-            self.lease_floor_s as f64,
-            self.lease_ceiling_s.max(self.lease_floor_s) as f64,
-        );
-        now + secs.ceil() as i64
+    /// The rules of the unit lifecycle under these settings.
+    pub fn rules(&self) -> Rules {
+        Rules {
+            spot_checks: self.spot_checks,
+            max_reports: self.max_reports,
+            quarantine_after: self.quarantine_after.max(1),
+            quarantine_owner: self.quarantine_owner,
+            probation_reports: self.probation_reports,
+            leases_per_thread: self.leases_per_thread,
+            leases_per_owner: self.leases_per_owner,
+        }
+    }
+
+    /// Hand-out and deadline settings.
+    pub fn policy(&self) -> LeasePolicy {
+        LeasePolicy {
+            rules: self.rules(),
+            deadline_factor: self.deadline_factor,
+            limit_factor: self.lease_limit_factor.max(self.deadline_factor),
+            floor_s: self.lease_floor_s as i64,
+            ceiling_s: self.lease_ceiling_s as i64,
+            grace_s: self.heartbeat_grace_s(),
+            offer_s: self.offer_s as i64,
+            active_window_s: self.active_window_s as i64,
+            distinct_prefix: self.distinct_prefix,
+            ..LeasePolicy::default()
+        }
     }
 }
 
@@ -76,11 +165,15 @@ impl ServiceConfig {
 mod tests {
     use super::*;
     #[test]
-    fn deadline_has_floor_factor_and_ceiling() {
+    fn deadline_has_floor_factor_limit_and_ceiling() {
+        let p = ServiceConfig::default().policy();
+        assert_eq!(p.times(1000, 1_000_000, None), (1300, 1300)); // 1 s of work: the floor
+        assert_eq!(p.times(0, 600_000_000, None), (2400, 7200)); // 600 s × 4, × 12
+        assert_eq!(p.times(0, 600_000_000, Some(2.0)), (1200, 3600)); // twice as fast
+        assert_eq!(p.times(0, u64::MAX / 2, Some(1e-9)), (7 * 86400, 7 * 86400));
         let c = ServiceConfig::default();
-        assert_eq!(c.deadline(1000, 1_000_000, None), 1000 + 300); // 1 s of work: the floor
-        assert_eq!(c.deadline(0, 600_000_000, None), 2400); // 600 s × 4
-        assert_eq!(c.deadline(0, 600_000_000, Some(2.0)), 1200); // twice as fast
-        assert_eq!(c.deadline(0, u64::MAX / 2, Some(1e-9)), 7 * 86400);
+        assert_eq!((c.spot_checks, c.enrolment), (2, Enrolment::Open));
+        assert!(parse_share("1.5").is_err() && parse_share("x").is_err());
+        assert_eq!(parse_share("0.25").unwrap(), 0.25);
     }
 }

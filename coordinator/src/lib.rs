@@ -2,9 +2,11 @@
 //! workers, cross-checks their reports and serves the read-only monitoring API.
 //!
 //! Code map, one concern per module:
-//! * [`store`] — SQLite; the only module that contains SQL.
+//! * [`lifecycle`] — the life of a unit: states, checks on a report, the agreement rule,
+//!   spot checks, rechecks, rollback (pure: no SQL, no HTTP).
+//! * [`store`] — the database (SQLite or PostgreSQL); the only module that contains SQL.
+//! * [`checker`] — the coordinator's own computations (spot checks, rechecks).
 //! * [`plan`] — cutting a target's regions into units with the kernel's cost model.
-//! * [`quorum`] — when reports agree, settle, or dispute (no storage).
 //! * [`api`] — the HTTP service (axum): admin, worker protocol, monitoring, errors.
 //! * [`datadir`] — the data directory: database, coordinator key, admin token.
 //! * [`config`] — service settings.
@@ -22,6 +24,7 @@
 pub mod api;
 pub mod audit;
 pub mod certify;
+pub mod checker;
 pub mod checks;
 pub mod cli;
 pub mod config;
@@ -29,8 +32,8 @@ pub mod config_file;
 pub mod datadir;
 pub mod demo;
 pub mod export;
+pub mod lifecycle;
 pub mod plan;
-pub mod quorum;
 pub mod serve;
 pub mod store;
 

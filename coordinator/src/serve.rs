@@ -33,7 +33,7 @@ pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()
             t.tick().await;
             loop {
                 t.tick().await;
-                match st.store.expire_leases(crate::now()).await {
+                match st.store.sweep(crate::now(), &st.policy).await {
                     Ok(0) => {}
                     Ok(n) => tracing::info!(expired = n, "overdue leases expired"),
                     Err(e) => tracing::error!(error = %e, "lease sweep failed"),
@@ -42,6 +42,10 @@ pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()
         })
     };
 
+    let checker = crate::checker::spawn(state.clone(), config.checker_threads as usize);
+    if checker.is_none() {
+        tracing::warn!("checker_threads = 0: spot checks and rechecks wait for trusted workers, and so do certificates");
+    }
     let app = api::router(state.clone());
     axum::serve(
         listener,
@@ -51,6 +55,9 @@ pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()
     .await
     .context("serving")?;
     sweeper.abort();
+    if let Some(c) = checker {
+        c.abort();
+    }
     state.store.close().await;
     let _ = std::fs::remove_file(dir.path(crate::datadir::URL_FILE));
     tracing::info!("coordinator stopped");

@@ -7,11 +7,12 @@
 //! min(|x|,|y|,|z|) ≤ 10¹⁷ (Booker and Sutherland, *On a question of Mordell*, PNAS 118 (2021):
 //! the third known solution has min ≈ 4.7·10¹⁷); from memory, each confirmed by the exact check.
 
-use cubehunt_common::report::{Report, SignedReport};
-use cubehunt_common::{kernel, sign, Solution, KERNEL_VERSION};
+use cubehunt_common::report::Report;
+use cubehunt_common::{kernel, pieces, sign, Digest, Solution, KERNEL_VERSION};
 use cubehunt_coordinator::datadir::DataDir;
 use cubehunt_coordinator::plan::{plan_target, PlanSettings};
-use cubehunt_coordinator::store::{IncomingReport, NewCampaign, NewWorker, Store};
+use cubehunt_coordinator::store::workers::Call;
+use cubehunt_coordinator::store::{IncomingReport, LeasePolicy, NewCampaign, NewWorker, Store};
 use serde_json::Value;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -45,7 +46,10 @@ async fn build(bound: u64) -> Built {
         "want several units per target: {:?}",
         plans.iter().map(|p| p.units.len()).collect::<Vec<_>>()
     );
-    let signer = |spec: &cubehunt_common::UnitSpec| sign::sign(&key, &spec.canonical_bytes());
+    let signer: cubehunt_coordinator::store::campaigns::Signer =
+        std::sync::Arc::new(move |spec: &cubehunt_common::UnitSpec| {
+            sign::sign(&key, &spec.canonical_bytes())
+        });
     let now = 1_764_600_000;
     store
         .create_campaign(
@@ -54,6 +58,7 @@ async fn build(bound: u64) -> Built {
                 kernel: KERNEL_VERSION.into(),
                 bound,
                 unit_seconds: 1e-4,
+                recheck_share: 0.1,
             },
             &plans,
             &signer,
@@ -66,8 +71,23 @@ async fn build(bound: u64) -> Built {
     Built { _tmp: tmp, dir }
 }
 
-/// Workers of three owners take leases until none is left, compute with the kernel, report.
+/// A store call on behalf of `worker` at `now`, with a fresh nonce.
+fn call(worker: i64, now: i64) -> Call {
+    Call {
+        worker_id: worker,
+        nonce: hex::encode(rand::random::<[u8; 16]>()),
+        nonce_expires: now + 600,
+        now,
+        address: "127.0.0.1".into(),
+        net_prefix: "127.0.0.0/24".into(),
+    }
+}
+
+/// Workers of three owners take leases until none is left, compute every piece with the
+/// kernel and report; the organiser's checks (spot checks, sampled rechecks, probation) are
+/// run by [`cubehunt_coordinator::checker::run_all`] between rounds.
 async fn settle_all(store: &Store, now: i64) {
+    let policy = LeasePolicy::default();
     let mut workers = Vec::new();
     for owner in ["ana", "bea", "cal"] {
         let wkey = sign::generate();
@@ -78,51 +98,64 @@ async fn settle_all(store: &Store, now: i64) {
             threads: 1,
             label: format!("{owner}-desk"),
             address: "127.0.0.1".into(),
+            net_prefix: "127.0.0.0/24".into(),
+            invite_sha256: None,
+            invite_only: false,
         };
-        let w = store.enrol(&nw, now).await.unwrap().worker;
+        let nonce = hex::encode(rand::random::<[u8; 16]>());
+        let w = store
+            .enrol(&nw, &nonce, now + 600, now)
+            .await
+            .unwrap()
+            .worker;
         workers.push((w, wkey));
     }
-    loop {
+    for _round in 0..1000 {
         let mut any = false;
         for (w, wkey) in &workers {
-            let Some(g) = store
-                .grant_lease(w, "", false, now, &|_| now + 3600)
-                .await
-                .unwrap()
-            else {
+            let Some(g) = store.grant_lease(&call(w.id, now), &policy).await.unwrap() else {
                 continue;
             };
             any = true;
-            let out = kernel::scan(g.unit.k, &g.unit.rect, 1, &|_| {}).unwrap();
+            let spec = &g.unit.spec;
+            let mut digests: Vec<Digest> = Vec::new();
+            let mut solutions = Vec::new();
+            for p in pieces::of_unit(spec) {
+                let out = kernel::scan(spec.k, &p, 1, &|_| {}).unwrap();
+                digests.push(out.digest);
+                solutions.extend(out.solutions);
+            }
+            solutions.sort();
+            solutions.dedup();
             let report = Report {
                 lease_id: g.lease.id,
-                unit_id: g.unit.id,
+                unit_id: spec.unit_id,
                 worker_id: w.id,
                 kernel: KERNEL_VERSION.into(),
-                k: g.unit.k,
-                rect: g.unit.rect,
-                digest: out.digest,
-                solutions: out.solutions.clone(),
+                k: spec.k,
+                rect: spec.rect,
+                digest: digests.iter().copied().sum(),
+                pieces: digests.clone(),
+                solutions: solutions.clone(),
                 elapsed_s: 0.01,
             };
             let signature = sign::sign(wkey, &report.canonical_bytes());
-            let sr = SignedReport {
-                report,
-                signature: signature.clone(),
-            };
             let inc = IncomingReport {
+                call: call(w.id, now + 1),
                 lease_id: g.lease.id,
-                worker_id: w.id,
-                digest: out.digest.to_string(),
-                candidates: out.digest.candidates,
-                solutions: out.solutions,
+                digest: report.digest,
+                pieces_root: report.pieces_root(),
+                pieces: digests,
+                solutions,
                 signature,
-                body: serde_json::to_string(&sr).unwrap(),
                 elapsed_s: 0.01,
-                refused: None,
+                refusal: None,
             };
-            store.record_report(&inc, 3, now + 1).await.unwrap();
+            store.record_report(&inc, &policy).await.unwrap();
         }
+        cubehunt_coordinator::checker::run_all(store, &policy)
+            .await
+            .unwrap();
         if !any {
             break;
         }
@@ -296,6 +329,7 @@ async fn a_deleted_unit_is_a_gap() {
     let id = scalar(&b.dir, "SELECT max(id) FROM units WHERE region = 'main' AND target_id = (SELECT id FROM targets WHERE k = 30)").await;
     let q = [
         format!("DELETE FROM solutions WHERE unit_id = {id}"),
+        format!("DELETE FROM spot_checks WHERE unit_id = {id}"),
         format!("DELETE FROM reports WHERE unit_id = {id}"),
         format!("DELETE FROM leases WHERE unit_id = {id}"),
         format!("DELETE FROM units WHERE id = {id}"),
@@ -326,7 +360,7 @@ async fn an_altered_digest_is_found() {
         &v,
         "settlement",
         &format!("unit {id}"),
-        "settled as digest h00000000deadbeef",
+        "settled with digest h00000000deadbeef",
     );
     // A report's digest column changed: it no longer matches what the worker signed.
     let b = build(60).await;
@@ -336,9 +370,9 @@ async fn an_altered_digest_is_found() {
     assert_eq!(code, 1, "{v:#}");
     assert_found(
         &v,
-        "reports",
+        "signature",
         &format!("report {rid} "),
-        "differ from the signed body: digest",
+        "worker signature over the stored report",
     );
 }
 
@@ -354,7 +388,7 @@ async fn an_altered_solution_is_found() {
     let (code, v) = audit_json(&b.dir);
     assert_eq!(code, 1, "{v:#}");
     assert_found(&v, "solutions", "(-5, 4, 5)", "do not sum to k = 3");
-    assert_found(&v, "solutions", "(-5, 4, 5)", "no agreeing report");
+    assert_found(&v, "solutions", "(-5, 4, 5)", "not in the settled outcome");
     assert_found(
         &v,
         "solutions",
@@ -387,10 +421,8 @@ async fn swapped_or_corrupted_signatures_are_found() {
             // Two units' coordinator signatures swapped.
             &format!("UPDATE units SET signature = '{s2}' WHERE id = {u1}"),
             &format!("UPDATE units SET signature = '{s1}' WHERE id = {u2}"),
-            // A report's signature corrupted consistently in the column and the stored body.
-            &format!(
-                "UPDATE reports SET body = replace(body, signature, '00' || substr(signature, 3)), signature = '00' || substr(signature, 3) WHERE id = {r1}"
-            ),
+            // A report's signature corrupted.
+            &format!("UPDATE reports SET signature = '00' || substr(signature, 3) WHERE id = {r1}"),
         ],
     )
     .await;
@@ -428,7 +460,7 @@ async fn swapped_or_corrupted_signatures_are_found() {
         &v,
         "signature",
         "report",
-        "differs from the signature in the stored body",
+        "worker signature over the stored report",
     );
 }
 
@@ -447,12 +479,7 @@ async fn a_unit_settled_by_two_reports_of_one_owner_is_found() {
     .await;
     let (code, v) = audit_json(&b.dir);
     assert_eq!(code, 1, "{v:#}");
-    assert_found(
-        &v,
-        "settlement",
-        "unit",
-        "reports of a single owner \"ana\"",
-    );
+    assert_found(&v, "settlement", "unit", "backed by 1 distinct owner(s)");
 }
 
 #[tokio::test(flavor = "multi_thread")]
@@ -643,9 +670,12 @@ async fn an_incomplete_target_gets_no_certificate_and_extension_keeps_the_old_on
             .iter()
             .map(|&k| plan_target(k, 40, 80, settings).unwrap())
             .collect();
-        let signer = |spec: &cubehunt_common::UnitSpec| sign::sign(&key, &spec.canonical_bytes());
+        let signer: cubehunt_coordinator::store::campaigns::Signer =
+            std::sync::Arc::new(move |spec: &cubehunt_common::UnitSpec| {
+                sign::sign(&key, &spec.canonical_bytes())
+            });
         store
-            .extend_campaign(CAMPAIGN, 80, &plans, &signer, 1_764_700_000)
+            .extend_campaign(CAMPAIGN, 80, &plans, &signer, 0.0, 1_764_700_000)
             .await
             .unwrap();
         store.close().await;

@@ -407,6 +407,34 @@ impl Coordinator {
         Ok(r.json()?)
     }
 
+    /// An admin `GET` with the token from the data directory.
+    pub fn admin_get(&self, path: &str) -> Result<Value> {
+        let token = std::fs::read_to_string(self.dir.join("admin.token"))?;
+        let r = reqwest::blocking::Client::builder()
+            .timeout(Duration::from_secs(10))
+            .build()?
+            .get(format!("{}{path}", self.url()))
+            .bearer_auth(token.trim())
+            .send()?;
+        if !r.status().is_success() {
+            bail!("GET {path}: {}", r.status());
+        }
+        Ok(r.json()?)
+    }
+
+    /// `audit --data-dir DIR` while the coordinator runs (`_name`: the campaign the caller cares about; the audit covers the whole store).
+    pub fn audit(&self, _name: &str) -> Result<CmdOutput> {
+        let (code, out, err) = run_cmd(
+            &bin("cubehunt-coordinator"),
+            &s(&["audit", "--data-dir", self.dir.to_str().unwrap()]),
+            Duration::from_secs(300),
+        )?;
+        Ok(CmdOutput {
+            code,
+            text: format!("{out}{err}"),
+        })
+    }
+
     /// `/api/v1/workers`, keyed by worker id.
     pub fn workers(&self) -> Result<Vec<Value>> {
         Ok(self
@@ -533,6 +561,19 @@ pub fn unix_now() -> i64 {
 // ---- a worker driven by hand ------------------------------------------------------------
 
 /// The answer to one hand-made request.
+/// A finished command: its exit code and everything it printed.
+#[derive(Debug)]
+pub struct CmdOutput {
+    pub code: i32,
+    pub text: String,
+}
+
+impl CmdOutput {
+    pub fn ok(&self) -> bool {
+        self.code == 0
+    }
+}
+
 #[derive(Debug, Clone)]
 pub struct Answer {
     pub status: u16,
@@ -554,6 +595,7 @@ pub struct Wire {
     pub path: String,
     pub worker: String,
     pub time: String,
+    pub nonce: String,
     pub signature: String,
     pub body: Vec<u8>,
 }
@@ -578,11 +620,17 @@ impl HandWorker {
         let http = reqwest::blocking::Client::builder()
             .timeout(Duration::from_secs(30))
             .build()?;
+        let base = base.trim_end_matches('/').to_string();
+        let about: Value = http.get(format!("{base}/api/v1/about")).send()?.json()?;
+        let coordinator_key = about["coordinator_key"]
+            .as_str()
+            .ok_or_else(|| anyhow!("no coordinator key in {about}"))?
+            .to_string();
         let mut w = HandWorker {
-            base: base.trim_end_matches('/').to_string(),
+            base,
             key,
             worker_id: 0,
-            coordinator_key: String::new(),
+            coordinator_key,
             http,
         };
         let req = EnrolRequest {
@@ -591,6 +639,7 @@ impl HandWorker {
             kernel: KERNEL_VERSION.to_string(),
             threads: 1,
             label: format!("hand-{owner}"),
+            invite: None,
         };
         let a = w.post("/api/v1/enrol", &serde_json::to_vec(&req)?)?;
         if !a.ok() {
@@ -604,12 +653,13 @@ impl HandWorker {
 
     /// Sign and build a request without sending it.
     pub fn prepare(&self, path: &str, body: &[u8]) -> Wire {
-        let time = unix_now();
-        let sig = sign::sign(&self.key, &sign::request_bytes("POST", path, time, body));
+        let stamp = sign::Stamp::new(&self.coordinator_key, self.worker_id, unix_now());
+        let sig = sign::sign(&self.key, &sign::request_bytes(&stamp, "POST", path, body));
         Wire {
             path: path.to_string(),
             worker: self.worker_id.to_string(),
-            time: time.to_string(),
+            time: stamp.time.to_string(),
+            nonce: stamp.nonce,
             signature: sig,
             body: body.to_vec(),
         }
@@ -622,6 +672,7 @@ impl HandWorker {
             .header("content-type", "application/json")
             .header(sign::HDR_WORKER, &w.worker)
             .header(sign::HDR_TIME, &w.time)
+            .header(sign::HDR_NONCE, &w.nonce)
             .header(sign::HDR_SIGNATURE, &w.signature)
             .body(w.body.clone())
             .send()?;
@@ -633,6 +684,14 @@ impl HandWorker {
 
     pub fn post(&self, path: &str, body: &[u8]) -> Result<Answer> {
         self.send(&self.prepare(path, body))
+    }
+
+    /// Ask for a lease once; the coordinator's answer as it came.
+    pub fn lease_once(&self) -> Result<Answer> {
+        self.post(
+            "/api/v1/lease",
+            &serde_json::to_vec(&LeaseRequest { threads: 1 })?,
+        )
     }
 
     /// Ask for a lease, retrying while there is none, up to `timeout`.
@@ -659,11 +718,12 @@ impl HandWorker {
             .map_err(|e| anyhow!("unit signature: {e}"))
     }
 
-    /// A signed report of `digest` and `solutions` for the grant.
+    /// A signed report of the piece digests `pieces` (their sum is the unit's digest) and
+    /// `solutions` for the grant.
     pub fn report_for(
         &self,
         g: &LeaseGrant,
-        digest: Digest,
+        pieces: Vec<Digest>,
         solutions: Vec<Solution>,
     ) -> SignedReport {
         let u = &g.unit.unit;
@@ -674,7 +734,8 @@ impl HandWorker {
             kernel: u.kernel.clone(),
             k: u.k,
             rect: u.rect,
-            digest,
+            digest: pieces.iter().copied().sum(),
+            pieces,
             solutions,
             elapsed_s: 0.0,
         };
@@ -695,12 +756,34 @@ impl HandWorker {
     }
 }
 
-/// The honest result of a granted unit, computed here with the kernel.
-pub fn honest(g: &LeaseGrant) -> (Digest, Vec<Solution>) {
+/// The honest result of a granted unit, computed here with the kernel piece by piece
+/// (`common::pieces`): the piece digests and the solutions.
+pub fn honest(g: &LeaseGrant) -> (Vec<Digest>, Vec<Solution>) {
     let u = &g.unit.unit;
-    let out = kernel::scan(u.k, &u.rect, 1, &|_| {})
-        .expect("the kernel scans a unit the coordinator planned");
-    (out.digest, out.solutions)
+    let mut digests = Vec::new();
+    let mut sols = Vec::new();
+    for p in cubehunt_common::pieces::of_unit(u) {
+        let out = kernel::scan(u.k, &p, 1, &|_| {})
+            .expect("the kernel scans a piece of a unit the coordinator planned");
+        digests.push(out.digest);
+        sols.extend(out.solutions);
+    }
+    sols.sort();
+    sols.dedup();
+    (digests, sols)
+}
+
+/// Piece digests with the honest counts but invented survivor hashes: what a worker that
+/// skipped the sieve, and guessed the easy numbers right, would report.
+pub fn invented(pieces: &[Digest], salt: u64) -> Vec<Digest> {
+    pieces
+        .iter()
+        .enumerate()
+        .map(|(i, d)| Digest {
+            hash: d.hash ^ (0x9e37_79b9_7f4a_7c15u64.wrapping_mul(salt.wrapping_add(i as u64 + 1))),
+            ..*d
+        })
+        .collect()
 }
 
 /// Every solution of `x³+y³+z³ = k` with `max(|x|,|y|,|z|) ≤ m`, by brute force over `x ≤ y`

@@ -1,23 +1,31 @@
-//! Misbehaving workers against a real coordinator: a wrong digest is outvoted and counted, a
-//! forged solution is refused and counted, a report for someone else's lease is refused, and a
-//! replayed report changes nothing. The misbehaving worker is driven by hand
-//! (`HandWorker`, speaking the protocol with `cubehunt_common::sign`); honest work is done by
-//! real `cubehunt-worker run` processes.
+//! Misbehaving workers against a real coordinator: a forged solution is refused and counted,
+//! a report for someone else's lease is refused, a replayed request is refused and changes
+//! nothing, and invented survivor hashes are caught by the coordinator's spot checks, which
+//! quarantine the liar. The misbehaving worker is driven by hand (`HandWorker`, speaking the
+//! protocol with `cubehunt_common::sign`); honest work is done by real `cubehunt-worker run`
+//! processes.
 
-use cubehunt_common::{Digest, Region, Solution};
+use cubehunt_common::{Region, Solution};
 use cubehunt_tests::*;
 use serde_json::Value;
 use std::collections::BTreeSet;
 use std::time::Duration;
 
-const SERVE: &[&str] = &["--retry-after-s", "1", "--sweep-s", "1"];
+const SERVE: &[&str] = &[
+    "--retry-after-s",
+    "1",
+    "--sweep-s",
+    "1",
+    "--leases-per-thread",
+    "3",
+];
 
 fn errors(coord: &Coordinator, id: i64) -> i64 {
     coord.worker_view(id).unwrap()["errors"].as_i64().unwrap()
 }
 
 #[test]
-fn lies_are_outvoted_refused_and_counted_and_replays_change_nothing() {
+fn lies_are_refused_caught_and_quarantined_and_replays_change_nothing() {
     let _g = serial();
     let tmp = tempfile::tempdir().unwrap();
     let coord = Coordinator::start(tmp.path(), SERVE).unwrap();
@@ -62,7 +70,7 @@ fn lies_are_outvoted_refused_and_counted_and_replays_change_nothing() {
         Some(0)
     );
 
-    // 2. A forged solution: the honest digest of the equal-region unit plus a false triple.
+    // 2. A forged solution: the honest digests of the equal-region unit plus a false triple.
     let (d, mut sols) = honest(&g_equal);
     sols.push(Solution::new(2, 3, 5)); // 8 + 27 + 125 ≠ 3
     let a = mallory
@@ -80,9 +88,11 @@ fn lies_are_outvoted_refused_and_counted_and_replays_change_nothing() {
     let before = coord.show("faults").unwrap();
     let reports_before = coord.worker_view(mallory.worker_id).unwrap()["reports"].clone();
     let again = mallory.send(&wire).unwrap();
-    assert!(again.ok(), "a replay is answered, not an error: {again:?}");
-    assert_eq!(again.body["accepted"], Value::Bool(false), "{again:?}");
-    assert_eq!(again.body["unit_state"], first.body["unit_state"]);
+    assert_eq!(
+        again.status, 409,
+        "a replayed request is refused: {again:?}"
+    );
+    assert_eq!(again.error_code(), "replayed");
     assert_eq!(
         coord.worker_view(mallory.worker_id).unwrap()["reports"],
         reports_before
@@ -93,19 +103,26 @@ fn lies_are_outvoted_refused_and_counted_and_replays_change_nothing() {
         "a replay changes no unit"
     );
 
-    // 4. A wrong digest for the small-region unit: the honest hash plus one.
+    // 4. Invented survivor hashes for the small-region unit, with every easy count right:
+    //    the report's shape is fine, so it is accepted; the coordinator's spot checks of
+    //    pieces drawn after the report was stored prove it wrong.
     let (d, sols) = honest(&g_small);
-    let wrong = Digest {
-        hash: d.hash.wrapping_add(1),
-        ..d
-    };
     let a = mallory
-        .send(&mallory.prepare_report(&mallory.report_for(&g_small, wrong, sols)))
+        .send(&mallory.prepare_report(&mallory.report_for(&g_small, invented(&d, 7), sols)))
         .unwrap();
     assert!(
         a.ok(),
-        "a wrong digest cannot be told from a right one yet: {a:?}"
+        "a well-formed report is accepted for checking: {a:?}"
     );
+    wait_for("mallory's quarantine", Duration::from_secs(60), || {
+        coord.worker_view(mallory.worker_id).ok()?["quarantined"]
+            .as_bool()
+            .filter(|q| *q)
+    })
+    .unwrap_or_else(|e| panic!("{e:#}\n--- coordinator:\n{}", coord.log_text()));
+    let quarantined = mallory.lease_once().unwrap();
+    assert_eq!(quarantined.status, 403, "{quarantined:?}");
+    assert_eq!(quarantined.error_code(), "quarantined");
 
     // Honest workers of three other owners finish the campaign.
     let workers: Vec<Worker> = ["olga", "pavel", "quinn"]
@@ -121,11 +138,10 @@ fn lies_are_outvoted_refused_and_counted_and_replays_change_nothing() {
             }
             panic!("{e:#}\n--- coordinator:\n{}", coord.log_text());
         });
-    // The wrong digest opened a dispute that the honest majority settled; mallory's second
-    // error is the outvoted report. The false triple was never stored.
-    assert_eq!(
-        errors(&coord, mallory.worker_id),
-        2,
+    // Mallory's errors: the false triple and the invented hashes. Her honest report of the
+    // main unit was voided by the quarantine; the unit was settled by others.
+    assert!(
+        errors(&coord, mallory.worker_id) >= 2,
         "{}",
         coord.worker_view(mallory.worker_id).unwrap()
     );
@@ -136,6 +152,15 @@ fn lies_are_outvoted_refused_and_counted_and_replays_change_nothing() {
         errors(&coord, trudy.worker_id),
         0,
         "a refused foreign report is not the thief's error count"
+    );
+    let incidents = coord.admin_get("/api/v1/admin/incidents").unwrap();
+    let list = incidents["incidents"].as_array().expect("incidents list");
+    assert!(
+        list.iter().any(|i| i["kind"] == "piece_mismatch"
+            && i["quarantined"]
+                .as_array()
+                .is_some_and(|q| q.contains(&Value::from(mallory.worker_id)))),
+        "{incidents}"
     );
     // (1, 1, 1) and (4, 4, −5): the solutions of k = 3 with min ≤ 300 (classical; from memory,
     // verified exactly here; next known min ≈ 4.7·10¹⁷, Booker and Sutherland, PNAS 118, 2021).
@@ -149,17 +174,7 @@ fn lies_are_outvoted_refused_and_counted_and_replays_change_nothing() {
         want,
         "the kernel, run here, agrees"
     );
-    // The disputed unit needed a third report: its two honest reports came from other owners.
-    let total_reports: i64 = workers
-        .iter()
-        .map(|w| {
-            coord.worker_view(w.worker_id().unwrap()).unwrap()["reports"]
-                .as_i64()
-                .unwrap()
-        })
-        .sum();
-    assert!(
-        total_reports >= 4,
-        "2 for the small unit, 1 each for the others at least: {total_reports}"
-    );
+    // No unit was settled with mallory's word: every settled unit names two honest settlers.
+    let audit = coord.audit("faults").unwrap();
+    assert!(audit.ok(), "{}", audit.text);
 }

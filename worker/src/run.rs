@@ -9,7 +9,6 @@
 //! What it deliberately does not do: trust anything the network says without a signature it
 //! can check, keep more than one lease, or decide how a unit is sieved (that is the kernel's).
 
-mod chunks;
 mod client;
 mod state;
 pub(crate) mod sys;
@@ -20,7 +19,7 @@ use cubehunt_common::protocol::{
     EnrolRequest, HeartbeatRequest, LeaseGrant, LeaseRequest, MAX_OWNER_LEN,
 };
 use cubehunt_common::report::{Report, SignedReport};
-use cubehunt_common::{kernel, sign, Digest, Solution, KERNEL_VERSION};
+use cubehunt_common::{kernel, pieces, sign, Digest, Solution, KERNEL_VERSION};
 use rand::Rng;
 use state::{ChunkResult, Enrolment, StateDir, StoredLease};
 use std::cell::Cell;
@@ -107,6 +106,15 @@ pub struct RunArgs {
     /// Label shown in the coordinator's monitoring (default: the host name).
     #[arg(long, value_name = "TEXT")]
     pub label: Option<String>,
+    /// The invitation the organiser gave you, when the coordinator enrols by invitation only
+    /// (needed once, for the first enrolment of this state directory).
+    #[arg(
+        long,
+        value_name = "TOKEN",
+        env = "CUBEHUNT_INVITE",
+        hide_env_values = true
+    )]
+    pub invite: Option<String>,
 }
 
 /// How a lease ended.
@@ -289,7 +297,7 @@ impl Worker {
                         match r.lease {
                             Some(g) => {
                                 idle_logged = false;
-                                let plan = chunks::plan(g.unit.unit.k, &g.unit.unit.rect);
+                                let plan = pieces::of_unit(&g.unit.unit);
                                 (
                                     StoredLease {
                                         grant: g,
@@ -383,6 +391,9 @@ impl Worker {
         self.pinned = pinned_hex
             .as_deref()
             .map(|h| sign::public_from_hex(h).expect("checked on load"));
+        if let Some(h) = &pinned_hex {
+            self.api.set_coordinator_key(h);
+        }
 
         if let Some(e) = self.state.load_enrolment()? {
             if e.owner != self.args.owner {
@@ -426,12 +437,37 @@ impl Worker {
             return Ok(());
         }
 
+        if self.pinned.is_none() {
+            // First contact: learn the key that every signed request must name, and pin it.
+            let about = loop {
+                match self.api.about() {
+                    Ok(a) => break a,
+                    Err(e) => {
+                        if !self.retry_later("asking the coordinator for its key", &e) {
+                            return Ok(());
+                        }
+                    }
+                }
+            };
+            let got = about.coordinator_key.trim().to_ascii_lowercase();
+            let key = sign::public_from_hex(&got).map_err(|_| {
+                anyhow::anyhow!(
+                    "the coordinator presents {:?} as its key, which is not a public key",
+                    about.coordinator_key
+                )
+            })?;
+            self.state.save_pinned_key(&got)?;
+            self.pinned = Some(key);
+            self.api.set_coordinator_key(&got);
+            event!("pinned coordinator key {got} (first contact; pass --coordinator-key to check it instead)");
+        }
         let req = EnrolRequest {
             owner: self.args.owner.clone(),
             public_key: self.api.public_key_hex(),
             kernel: KERNEL_VERSION.to_string(),
             threads: self.threads as u32,
             label: self.args.label.clone().unwrap_or_else(sys::hostname),
+            invite: self.args.invite.clone(),
         };
         let resp = loop {
             match self.api.enrol(&req) {
@@ -466,11 +502,7 @@ impl Worker {
                 sign::public_to_hex(p)
             ),
             Some(_) => {}
-            None => {
-                self.state.save_pinned_key(&got)?;
-                self.pinned = Some(got_key);
-                event!("pinned coordinator key {got} (first contact; pass --coordinator-key to check it instead)");
-            }
+            None => unreachable!("pinned before enrolling"),
         }
         if resp.worker_id <= 0 {
             bail!(
@@ -532,8 +564,10 @@ impl Worker {
             self.state.clear_lease()?;
             return Ok(Outcome::Refused { bad_signature });
         }
-        // The plan is a function of the unit; recomputed so that a stored plan is never trusted.
-        let plan = chunks::plan(unit.k, &unit.rect);
+        // The pieces are a function of the unit (`common::pieces`); recomputed so that a stored
+        // plan is never trusted. Each piece is one checkpointed chunk, and the report commits
+        // to every piece's digest.
+        let plan = pieces::of_unit(&unit);
         stored.chunks = plan.clone();
         if !resumed {
             self.state.begin_lease(&stored)?;
@@ -671,6 +705,7 @@ impl Worker {
             k: unit.k,
             rect: unit.rect,
             digest,
+            pieces: results.iter().map(|c| c.digest).collect(),
             solutions,
             elapsed_s,
         };

@@ -329,6 +329,47 @@ pub fn candidates(k: i64, rect: &Rect) -> u64 {
     }
 }
 
+/// The counts of a rectangle's digest that do not depend on the sieve (`d_values`,
+/// `classes`, `candidates`; `survivors` and `hash` are zero), or `None` when computing them
+/// would cost more than a small share of scanning the rectangle.
+///
+/// Small and equal regions: closed forms, always cheap. Main region: the roots of `k` modulo
+/// every `d` are needed, which is the factorisation work of the scan; that is a small share
+/// of the scan only when classes are long, so the counts are derived when the rectangle has
+/// at least [`COUNTS_MIN_CANDIDATES_PER_D`] estimated candidates per `d` and at most
+/// [`COUNTS_MAX_D`] values of `d`.
+pub fn counts(k: i64, rect: &Rect) -> Option<Digest> {
+    let ak = k.abs();
+    match rect.region {
+        Region::Small | Region::Equal => {
+            let c = candidates(k, rect);
+            Some(Digest {
+                d_values: c,
+                candidates: c,
+                ..Digest::ZERO
+            })
+        }
+        Region::Main => {
+            let n_d = rect.d_hi.saturating_sub(rect.d_lo).max(1);
+            let per_d = estimate_candidates(k, rect) / n_d as f64;
+            (n_d <= COUNTS_MAX_D && per_d >= COUNTS_MIN_CANDIDATES_PER_D).then(|| {
+                let d = main_region::digest_counts_main(ak, rect);
+                Digest {
+                    survivors: 0,
+                    hash: 0,
+                    ..d
+                }
+            })
+        }
+    }
+}
+
+/// See [`counts`]: a `d` costs about as much as 10⁴ sieved candidates (kernel cost model),
+/// so below this many candidates per `d` counting would cost more than about 1% of the scan.
+pub const COUNTS_MIN_CANDIDATES_PER_D: f64 = 1e6;
+/// See [`counts`].
+pub const COUNTS_MAX_D: u64 = 1 << 20;
+
 /// Cost model: estimated seconds for one reference core to scan `rect` (cheap to evaluate,
 /// even for rectangles with `d` up to 10¹⁵; calibrated by the kernel benchmark).
 pub fn estimate_seconds(k: i64, rect: &Rect) -> f64 {

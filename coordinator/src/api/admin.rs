@@ -1,5 +1,5 @@
 //! Campaign administration (bearer admin token): create, list, show, pause, resume, cancel,
-//! extend.
+//! extend; invitations; marking workers trusted; quarantining a worker by hand.
 
 use super::error::parse_json;
 use super::monitor::{all_views, campaign_view, find_campaign, CampaignView};
@@ -128,8 +128,9 @@ async fn plan_all(
     Ok(plans)
 }
 
-fn signer(st: &AppState) -> impl Fn(&UnitSpec) -> String + Sync + '_ {
-    move |spec: &UnitSpec| sign::sign(&st.key, &spec.canonical_bytes())
+fn signer(st: &AppState) -> crate::store::campaigns::Signer {
+    let key = st.key.clone();
+    std::sync::Arc::new(move |spec: &UnitSpec| sign::sign(&key, &spec.canonical_bytes()))
 }
 
 pub async fn create(
@@ -189,6 +190,7 @@ pub async fn create(
         kernel: KERNEL_VERSION.to_string(),
         bound,
         unit_seconds,
+        recheck_share: st.config.recheck_share,
     };
     let sign = signer(&st);
     let c = st
@@ -248,7 +250,7 @@ pub async fn action(
             let sign = signer(&st);
             let c2 = st
                 .store
-                .extend_campaign(&name, b2, &plans, &sign, now)
+                .extend_campaign(&name, b2, &plans, &sign, st.config.recheck_share, now)
                 .await?;
             tracing::info!(campaign = %name, from = c.bound, to = b2, units = plans.iter().map(|p| p.units.len()).sum::<usize>(), "campaign extended");
             c2
@@ -262,4 +264,227 @@ pub async fn action(
     };
     tracing::info!(campaign = %name, %action, state = %c.state, "campaign changed");
     Ok(Json(campaign_view(&st, &c).await?))
+}
+
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct CreateInvite {
+    /// The owner every worker enrolled with the invitation belongs to.
+    pub owner: String,
+    /// How many workers it may enrol (default 1).
+    #[serde(default)]
+    pub workers: Option<u32>,
+    /// Seconds until it expires (default: never).
+    #[serde(default)]
+    pub expires_in_s: Option<u64>,
+    #[serde(default)]
+    pub note: String,
+}
+
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct InviteView {
+    pub id: i64,
+    pub owner: String,
+    pub workers_left: i64,
+    pub note: String,
+    pub created_at: i64,
+    pub expires_at: Option<i64>,
+    /// The token itself: shown once, when the invitation is made (only its hash is kept).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub token: Option<String>,
+}
+
+impl InviteView {
+    fn of(r: crate::store::InviteRow, token: Option<String>) -> InviteView {
+        InviteView {
+            id: r.id,
+            owner: r.owner,
+            workers_left: r.workers_left,
+            note: r.note,
+            created_at: r.created_at,
+            expires_at: r.expires_at,
+            token,
+        }
+    }
+}
+
+pub async fn create_invite(
+    State(st): State<Shared>,
+    headers: HeaderMap,
+    body: Result<Bytes, BytesRejection>,
+) -> ApiResult<Json<InviteView>> {
+    auth::require_admin(&st, &headers)?;
+    let body = body?;
+    let req: CreateInvite = parse_json(&body, "invitation")?;
+    check_name("owner", &req.owner).map_err(bad("bad_owner"))?;
+    let workers = req.workers.unwrap_or(1);
+    if !(1..=100_000).contains(&workers) {
+        return Err(AppError::bad_request(
+            "bad_workers",
+            format!("workers must be 1 to 100000 (got {workers})"),
+        ));
+    }
+    if req.note.chars().count() > 200 || req.note.chars().any(char::is_control) {
+        return Err(AppError::bad_request(
+            "bad_note",
+            "note must be at most 200 printable characters",
+        ));
+    }
+    let now = crate::now();
+    let expires_at = match req.expires_in_s {
+        None => None,
+        Some(s) if s > 0 && s <= 10 * 365 * 86400 => Some(now + s as i64),
+        Some(s) => {
+            return Err(AppError::bad_request(
+                "bad_expiry",
+                format!("expires_in_s must be 1 to 315360000 seconds (got {s})"),
+            ))
+        }
+    };
+    let mut raw = [0u8; 24];
+    rand::RngCore::fill_bytes(&mut rand::rngs::OsRng, &mut raw);
+    let token = format!("inv-{}", hex::encode(raw));
+    let row = st
+        .store
+        .create_invite(
+            &sign::sha256_hex(token.as_bytes()),
+            &req.owner.to_ascii_lowercase(),
+            workers,
+            &req.note,
+            expires_at,
+            now,
+        )
+        .await?;
+    tracing::info!(invite = row.id, owner = %row.owner, workers, "invitation made");
+    Ok(Json(InviteView::of(row, Some(token))))
+}
+
+pub async fn list_invites(
+    State(st): State<Shared>,
+    headers: HeaderMap,
+) -> ApiResult<Json<Vec<InviteView>>> {
+    auth::require_admin(&st, &headers)?;
+    Ok(Json(
+        st.store
+            .invites()
+            .await?
+            .into_iter()
+            .map(|r| InviteView::of(r, None))
+            .collect(),
+    ))
+}
+
+/// Most incidents in one answer of `GET /api/v1/admin/incidents`.
+pub const INCIDENTS_PAGE: i64 = 500;
+
+#[derive(Clone, Debug, Serialize)]
+pub struct IncidentsPage {
+    pub incidents: Vec<crate::store::IncidentRow>,
+    /// Pass as `?after=` for the next page; absent on the last page.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub next_after: Option<i64>,
+}
+
+#[derive(Clone, Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AfterQuery {
+    #[serde(default)]
+    pub after: i64,
+}
+
+/// `GET /api/v1/admin/incidents[?after=ID]`: proven mismatches and quarantines, oldest first,
+/// [`INCIDENTS_PAGE`] at a time.
+pub async fn incidents(
+    State(st): State<Shared>,
+    headers: HeaderMap,
+    q: Result<axum::extract::Query<AfterQuery>, axum::extract::rejection::QueryRejection>,
+) -> ApiResult<Json<IncidentsPage>> {
+    auth::require_admin(&st, &headers)?;
+    let after = q
+        .map_err(|e| AppError::bad_request("bad_query", format!("query string: {e}")))?
+        .0
+        .after;
+    let incidents = st.store.incidents_page(after, INCIDENTS_PAGE).await?;
+    let next_after = (incidents.len() as i64 == INCIDENTS_PAGE)
+        .then(|| incidents.last().map(|i| i.id))
+        .flatten();
+    Ok(Json(IncidentsPage {
+        incidents,
+        next_after,
+    }))
+}
+
+#[derive(Clone, Debug, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct WorkerAction {
+    /// Why (kept with a quarantine).
+    #[serde(default)]
+    pub reason: String,
+}
+
+/// `POST /api/v1/admin/workers/{id}/{trust|distrust|quarantine}`.
+pub async fn worker_action(
+    State(st): State<Shared>,
+    headers: HeaderMap,
+    Path((id, action)): Path<(String, String)>,
+    body: Result<Bytes, BytesRejection>,
+) -> ApiResult<Json<crate::store::WorkerView>> {
+    auth::require_admin(&st, &headers)?;
+    let body = body?;
+    let id: i64 = id.parse().ok().filter(|v| *v > 0).ok_or_else(|| {
+        AppError::bad_request(
+            "bad_worker_id",
+            format!(
+                "{:?} is not a worker id",
+                id.chars().take(24).collect::<String>()
+            ),
+        )
+    })?;
+    let req: WorkerAction = if body.iter().all(|b| b.is_ascii_whitespace()) {
+        WorkerAction::default()
+    } else {
+        parse_json(&body, "worker action")?
+    };
+    if req.reason.chars().count() > 200 || req.reason.chars().any(char::is_control) {
+        return Err(AppError::bad_request(
+            "bad_reason",
+            "reason must be at most 200 printable characters",
+        ));
+    }
+    match action.as_str() {
+        "trust" => {
+            st.store.set_trusted(id, true).await?;
+        }
+        "distrust" => {
+            st.store.set_trusted(id, false).await?;
+        }
+        "quarantine" => {
+            let reason = if req.reason.is_empty() {
+                "by the organiser".to_string()
+            } else {
+                req.reason.clone()
+            };
+            st.store
+                .quarantine_by_hand(id, &reason, &st.config.policy(), crate::now())
+                .await?;
+        }
+        other => {
+            return Err(AppError::not_found(
+                "no_action",
+                format!(
+                    "unknown worker action {:?}: use trust, distrust or quarantine",
+                    other.chars().take(24).collect::<String>()
+                ),
+            ))
+        }
+    }
+    tracing::info!(worker = id, %action, "worker changed by the organiser");
+    let v = st
+        .store
+        .workers()
+        .await?
+        .into_iter()
+        .find(|w| w.id == id)
+        .ok_or_else(|| AppError::not_found("not_found", format!("no worker {id}")))?;
+    Ok(Json(v))
 }

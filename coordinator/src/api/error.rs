@@ -77,7 +77,12 @@ impl From<StoreError> for AppError {
             StoreError::NotFound(m) => AppError::not_found("not_found", m),
             StoreError::Conflict(code, m) => AppError::conflict(code, m),
             StoreError::Forbidden(code, m) => AppError::forbidden(code, m),
-            e @ (StoreError::Db(_) | StoreError::Migrate(_)) => {
+            StoreError::Closed => AppError::new(
+                axum::http::StatusCode::SERVICE_UNAVAILABLE,
+                "shutting_down",
+                "the coordinator is shutting down; try again in a moment",
+            ),
+            e @ (StoreError::Db(_) | StoreError::Migrate(_) | StoreError::Corrupt(_)) => {
                 AppError::internal(format!("{e}; the coordinator log has details"))
             }
         }

@@ -22,7 +22,7 @@ mod http_tests;
 pub use error::{ApiResult, AppError};
 
 use crate::config::ServiceConfig;
-use crate::store::Store;
+use crate::store::{LeasePolicy, Store};
 use axum::extract::{ConnectInfo, DefaultBodyLimit, FromRequestParts, Request};
 use axum::http::request::Parts;
 use axum::middleware::{self, Next};
@@ -33,6 +33,7 @@ use cubehunt_common::protocol::MAX_BODY_BYTES;
 use cubehunt_common::sign::SecretKey;
 use std::net::{IpAddr, SocketAddr};
 use std::sync::Arc;
+use tokio::sync::Notify;
 
 /// Everything a request handler may use.
 pub struct AppState {
@@ -41,6 +42,10 @@ pub struct AppState {
     pub public_key: String,
     pub admin_token: String,
     pub config: ServiceConfig,
+    /// The hand-out and lifecycle settings derived from `config`.
+    pub policy: LeasePolicy,
+    /// Wakes the checker (the coordinator's own computations) when work for it arrives.
+    pub checker: Arc<Notify>,
     pub started_at: i64,
 }
 
@@ -54,7 +59,9 @@ impl AppState {
             key,
             public_key,
             admin_token,
+            policy: config.policy(),
             config,
+            checker: Arc::new(Notify::new()),
             started_at: crate::now(),
         })
     }
@@ -82,6 +89,7 @@ pub fn router(state: Shared) -> Router {
             get(records::export),
         )
         .route("/api/v1/workers", get(monitor::workers))
+        .route("/api/v1/about", get(worker::about))
         .route("/api/v1/enrol", post(worker::enrol))
         .route("/api/v1/lease", post(worker::lease))
         .route("/api/v1/lease/{id}/heartbeat", post(worker::heartbeat))
@@ -95,6 +103,15 @@ pub fn router(state: Shared) -> Router {
         .route(
             "/api/v1/admin/campaigns/{name}/{action}",
             post(admin::action),
+        )
+        .route(
+            "/api/v1/admin/invites",
+            get(admin::list_invites).post(admin::create_invite),
+        )
+        .route("/api/v1/admin/incidents", get(admin::incidents))
+        .route(
+            "/api/v1/admin/workers/{id}/{action}",
+            post(admin::worker_action),
         )
         .fallback(monitor::not_found)
         .layer(DefaultBodyLimit::max(MAX_BODY_BYTES))

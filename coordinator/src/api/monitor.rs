@@ -2,7 +2,7 @@
 //! `/healthz` and the status page. No authentication, no state changes.
 
 use super::{ApiResult, AppError, AppState, Shared};
-use crate::store::{CampaignRow, SolutionRow, TargetStats, UnitCounts, WorkerView};
+use crate::store::{CampaignRow, SolutionView, TargetStats, UnitCounts, WorkerView};
 use axum::extract::{Path, State};
 use axum::http::header;
 use axum::response::{Html, IntoResponse};
@@ -176,7 +176,7 @@ pub async fn campaign(
 pub async fn solutions(
     State(st): State<Shared>,
     Path(name): Path<String>,
-) -> ApiResult<Json<Vec<SolutionRow>>> {
+) -> ApiResult<Json<Vec<SolutionView>>> {
     let c = find_campaign(&st, &name).await?;
     Ok(Json(st.store.campaign_solutions(c.id).await?))
 }

@@ -1,32 +1,14 @@
 //! Campaigns, their targets and planned units.
 
-use super::{int, unit_from_row, Result, Store, StoreError, UnitRow, UNIT_COLUMNS};
+use super::{
+    int, CampaignRow, PlanRow, Result, Store, StoreError, TargetRow, UnitRow, UNIT_SELECT,
+};
+use crate::op;
 use cubehunt_common::{Rect, UnitSpec};
+use rand::Rng;
 use rayon::prelude::*;
-use sqlx::{QueryBuilder, Row, Sqlite, Transaction};
-
-/// A campaign as stored.
-#[derive(Clone, Debug)]
-pub struct CampaignRow {
-    pub id: i64,
-    pub name: String,
-    pub kernel: String,
-    pub bound: u64,
-    pub unit_seconds: f64,
-    /// `active`, `paused` or `cancelled` (whether it is complete is derived from its units).
-    pub state: String,
-    pub created_at: i64,
-    pub updated_at: i64,
-}
-
-#[derive(Clone, Debug)]
-pub struct TargetRow {
-    pub id: i64,
-    pub campaign_id: i64,
-    pub k: i64,
-    pub bound: u64,
-    pub z0: u64,
-}
+use sqlx::AnyConnection;
+use std::sync::Arc;
 
 #[derive(Clone, Debug)]
 pub struct NewCampaign {
@@ -34,6 +16,9 @@ pub struct NewCampaign {
     pub kernel: String,
     pub bound: u64,
     pub unit_seconds: f64,
+    /// Share of units the organiser's side recomputes in full (chosen at random now, never
+    /// shown to workers).
+    pub recheck_share: f64,
 }
 
 /// One rectangle chosen by the planner, with its estimated cost (reference-core µs).
@@ -52,89 +37,154 @@ pub struct TargetPlan {
 }
 
 /// Signs a unit spec (hex Ed25519 over its canonical bytes).
-pub type Signer<'a> = &'a (dyn Fn(&UnitSpec) -> String + Sync);
+pub type Signer = Arc<dyn Fn(&UnitSpec) -> String + Send + Sync>;
 
-fn campaign_from_row(r: &sqlx::sqlite::SqliteRow) -> Result<CampaignRow> {
-    Ok(CampaignRow {
-        id: r.try_get("id")?,
-        name: r.try_get("name")?,
-        kernel: r.try_get("kernel")?,
-        bound: r.try_get::<i64, _>("bound")? as u64,
-        unit_seconds: r.try_get("unit_seconds")?,
-        state: r.try_get("state")?,
-        created_at: r.try_get("created_at")?,
-        updated_at: r.try_get("updated_at")?,
-    })
+/// A unit ready to insert: id, spec, signature, whether it is rechecked.
+struct SignedPlanned {
+    spec: UnitSpec,
+    signature: String,
+    recheck: bool,
 }
 
-const INSERT_CHUNK: usize = 8192;
 const ROWS_PER_STATEMENT: usize = 500;
 
+pub(super) fn not_found(name: &str) -> StoreError {
+    StoreError::NotFound(format!(
+        "no campaign named {name:?} (list them with `cubehunt-coordinator campaign list`)"
+    ))
+}
+
 impl Store {
+    /// Reserve `n` consecutive unit ids.
+    async fn reserve_unit_ids(&self, n: u64) -> Result<i64> {
+        let n = int(n);
+        self.write(op!(|c| {
+            let next: i64 = sqlx::query_scalar(
+                "UPDATE counters SET next = next + $1 WHERE name = 'units' RETURNING next",
+            )
+            .bind(n)
+            .fetch_one(&mut *c)
+            .await?;
+            Ok(next - n)
+        }))
+        .await
+    }
+
+    /// Give every planned unit an id, sign it (on every core, outside the writer) and draw
+    /// whether the organiser's side rechecks it.
+    async fn sign_plans(
+        &self,
+        campaign: &str,
+        kernel: &str,
+        bound_to: u64,
+        plans: &[TargetPlan],
+        sign: &Signer,
+        recheck_share: f64,
+    ) -> Result<Vec<Vec<SignedPlanned>>> {
+        let total: u64 = plans.iter().map(|p| p.units.len() as u64).sum();
+        let mut next = self.reserve_unit_ids(total).await?;
+        let mut out = Vec::new();
+        for plan in plans {
+            let first = next;
+            next += plan.units.len() as i64;
+            let (campaign, kernel, sign, units, k) = (
+                campaign.to_string(),
+                kernel.to_string(),
+                sign.clone(),
+                plan.units.clone(),
+                plan.k,
+            );
+            let signed = tokio::task::spawn_blocking(move || {
+                units
+                    .par_iter()
+                    .enumerate()
+                    .map(|(i, pu)| {
+                        let spec = UnitSpec {
+                            unit_id: first + i as i64,
+                            campaign: campaign.clone(),
+                            k,
+                            bound: bound_to,
+                            kernel: kernel.clone(),
+                            rect: pu.rect,
+                            cost: pu.cost_us,
+                        };
+                        let signature = sign(&spec);
+                        let recheck = rand::rngs::OsRng.gen_bool(recheck_share.clamp(0.0, 1.0));
+                        SignedPlanned {
+                            spec,
+                            signature,
+                            recheck,
+                        }
+                    })
+                    .collect::<Vec<_>>()
+            })
+            .await
+            .map_err(|e| StoreError::Conflict("planning_failed", e.to_string()))?;
+            out.push(signed);
+        }
+        Ok(out)
+    }
+
     /// Create a campaign with its targets and every planned unit, signing each unit.
     pub async fn create_campaign(
         &self,
         new: &NewCampaign,
         plans: &[TargetPlan],
-        sign: Signer<'_>,
+        sign: &Signer,
         now: i64,
     ) -> Result<CampaignRow> {
-        let _w = self.write.lock().await;
-        let mut tx = self.pool.begin().await?;
-        let exists: Option<i64> = sqlx::query_scalar("SELECT id FROM campaigns WHERE name = ?")
-            .bind(&new.name)
-            .fetch_optional(&mut *tx)
-            .await?;
-        if exists.is_some() {
-            return Err(StoreError::Conflict(
-                "campaign_exists",
-                format!(
-                    "a campaign named {:?} already exists: choose another name, or extend that one",
-                    new.name
-                ),
-            ));
+        if self.campaign(&new.name).await?.is_some() {
+            return Err(exists(&new.name));
         }
-        let id: i64 = sqlx::query_scalar(
-            "INSERT INTO campaigns (name, kernel, bound, unit_seconds, state, created_at, updated_at) \
-             VALUES (?, ?, ?, ?, 'active', ?, ?) RETURNING id",
-        )
-        .bind(&new.name)
-        .bind(&new.kernel)
-        .bind(int(new.bound))
-        .bind(new.unit_seconds)
-        .bind(now)
-        .bind(now)
-        .fetch_one(&mut *tx)
-        .await?;
-        for plan in plans {
-            let target_id: i64 = sqlx::query_scalar(
-                "INSERT INTO targets (campaign_id, k, bound, z0) VALUES (?, ?, ?, ?) RETURNING id",
-            )
-            .bind(id)
-            .bind(plan.k)
-            .bind(int(new.bound))
-            .bind(int(plan.z0))
-            .fetch_one(&mut *tx)
-            .await?;
-            insert_plan(
-                &mut tx,
-                id,
+        let signed = self
+            .sign_plans(
                 &new.name,
                 &new.kernel,
-                target_id,
-                plan,
-                0,
                 new.bound,
+                plans,
                 sign,
-                now,
+                new.recheck_share,
             )
             .await?;
-        }
-        tx.commit().await?;
-        drop(_w);
-        self.campaign(&new.name)
-            .await?
-            .ok_or_else(|| StoreError::NotFound("campaign vanished".into()))
+        let new = new.clone();
+        let plans: Vec<(i64, u64)> = plans.iter().map(|p| (p.k, p.z0)).collect();
+        let id = self
+            .write(op!(|c| {
+                let taken: Option<i64> =
+                    sqlx::query_scalar("SELECT id FROM campaigns WHERE name = $1")
+                        .bind(&new.name)
+                        .fetch_optional(&mut *c)
+                        .await?;
+                if taken.is_some() {
+                    return Err(exists(&new.name));
+                }
+                let id: i64 = sqlx::query_scalar(
+                    "INSERT INTO campaigns (name, kernel, bound, unit_seconds, state, created_at, updated_at) \
+                     VALUES ($1, $2, $3, $4, 'active', $5, $5) RETURNING id",
+                )
+                .bind(&new.name)
+                .bind(&new.kernel)
+                .bind(int(new.bound))
+                .bind(new.unit_seconds)
+                .bind(now)
+                .fetch_one(&mut *c)
+                .await?;
+                for ((k, z0), units) in plans.iter().zip(&signed) {
+                    let target_id: i64 = sqlx::query_scalar(
+                        "INSERT INTO targets (campaign_id, k, bound, z0) VALUES ($1, $2, $3, $4) RETURNING id",
+                    )
+                    .bind(id)
+                    .bind(k)
+                    .bind(int(new.bound))
+                    .bind(int(*z0))
+                    .fetch_one(&mut *c)
+                    .await?;
+                    insert_units(c, id, target_id, units, 0, new.bound, now).await?;
+                }
+                Ok(id)
+            }))
+            .await?;
+        self.campaign_by_id(id).await
     }
 
     /// Raise the bound of every target of a campaign, adding the planned units of the new part.
@@ -143,205 +193,245 @@ impl Store {
         name: &str,
         new_bound: u64,
         plans: &[TargetPlan],
-        sign: Signer<'_>,
+        sign: &Signer,
+        recheck_share: f64,
         now: i64,
     ) -> Result<CampaignRow> {
-        let _w = self.write.lock().await;
-        let mut tx = self.pool.begin().await?;
-        let c = sqlx::query("SELECT * FROM campaigns WHERE name = ?")
-            .bind(name)
-            .fetch_optional(&mut *tx)
+        let c = self.campaign(name).await?.ok_or_else(|| not_found(name))?;
+        check_extension(&c, new_bound)?;
+        let signed = self
+            .sign_plans(&c.name, &c.kernel, new_bound, plans, sign, recheck_share)
             .await?;
-        let c = match c {
-            Some(r) => campaign_from_row(&r)?,
-            None => return Err(not_found(name)),
-        };
-        if c.state == "cancelled" {
-            return Err(StoreError::Conflict(
-                "campaign_cancelled",
-                format!(
-                    "campaign {name:?} is cancelled and cannot be extended; create a new campaign"
-                ),
-            ));
-        }
-        if new_bound <= c.bound {
-            return Err(StoreError::Conflict(
-                "bound_not_larger",
-                format!("campaign {name:?} already has bound {}; an extension needs a larger bound (got {new_bound})", c.bound),
-            ));
-        }
-        for plan in plans {
-            let target_id: Option<i64> =
-                sqlx::query_scalar("SELECT id FROM targets WHERE campaign_id = ? AND k = ?")
-                    .bind(c.id)
-                    .bind(plan.k)
-                    .fetch_optional(&mut *tx)
+        let ks: Vec<i64> = plans.iter().map(|p| p.k).collect();
+        let cid = c.id;
+        self.write(op!(|tx| {
+            let row = sqlx::query("SELECT * FROM campaigns WHERE id = $1")
+                .bind(cid)
+                .fetch_one(&mut *tx)
+                .await?;
+            let c = CampaignRow::from_row(&row)?;
+            check_extension(&c, new_bound)?;
+            for (k, units) in ks.iter().zip(&signed) {
+                let target_id: Option<i64> =
+                    sqlx::query_scalar("SELECT id FROM targets WHERE campaign_id = $1 AND k = $2")
+                        .bind(c.id)
+                        .bind(k)
+                        .fetch_optional(&mut *tx)
+                        .await?;
+                let target_id = target_id.ok_or_else(|| {
+                    StoreError::NotFound(format!("campaign {:?} has no target k = {k}", c.name))
+                })?;
+                insert_units(tx, c.id, target_id, units, c.bound, new_bound, now).await?;
+                sqlx::query("UPDATE targets SET bound = $1 WHERE id = $2")
+                    .bind(int(new_bound))
+                    .bind(target_id)
+                    .execute(&mut *tx)
                     .await?;
-            let target_id = target_id.ok_or_else(|| {
-                StoreError::NotFound(format!("campaign {name:?} has no target k = {}", plan.k))
-            })?;
-            insert_plan(
-                &mut tx, c.id, &c.name, &c.kernel, target_id, plan, c.bound, new_bound, sign, now,
-            )
-            .await?;
-            sqlx::query("UPDATE targets SET bound = ? WHERE id = ?")
+            }
+            sqlx::query("UPDATE campaigns SET bound = $1, updated_at = $2 WHERE id = $3")
                 .bind(int(new_bound))
-                .bind(target_id)
+                .bind(now)
+                .bind(c.id)
                 .execute(&mut *tx)
                 .await?;
-        }
-        sqlx::query("UPDATE campaigns SET bound = ?, updated_at = ? WHERE id = ?")
-            .bind(int(new_bound))
-            .bind(now)
-            .bind(c.id)
-            .execute(&mut *tx)
-            .await?;
-        tx.commit().await?;
-        drop(_w);
-        self.campaign(name).await?.ok_or_else(|| not_found(name))
+            Ok(())
+        }))
+        .await?;
+        self.campaign_by_id(cid).await
     }
 
     /// Change a campaign's state. `to` is `active`, `paused` or `cancelled`; a cancelled
-    /// campaign stays cancelled.
+    /// campaign stays cancelled. Pausing or cancelling withdraws the active leases.
     pub async fn set_campaign_state(&self, name: &str, to: &str, now: i64) -> Result<CampaignRow> {
-        let _w = self.write.lock().await;
-        let c = self.campaign(name).await?.ok_or_else(|| not_found(name))?;
-        if c.state == "cancelled" && to != "cancelled" {
-            return Err(StoreError::Conflict("campaign_cancelled", format!("campaign {name:?} is cancelled; a cancelled campaign cannot be resumed or paused")));
-        }
-        sqlx::query("UPDATE campaigns SET state = ?, updated_at = ? WHERE id = ?")
-            .bind(to)
-            .bind(now)
-            .bind(c.id)
-            .execute(&self.pool)
+        let (name, to) = (name.to_string(), to.to_string());
+        let n2 = name.clone();
+        let id = self
+            .write(op!(|c| {
+                let row = sqlx::query("SELECT * FROM campaigns WHERE name = $1")
+                    .bind(&name)
+                    .fetch_optional(&mut *c)
+                    .await?;
+                let camp = match row {
+                    Some(r) => CampaignRow::from_row(&r)?,
+                    None => return Err(not_found(&name)),
+                };
+                if camp.state == "cancelled" && to != "cancelled" {
+                    return Err(StoreError::Conflict(
+                        "campaign_cancelled",
+                        format!("campaign {name:?} is cancelled; a cancelled campaign cannot be resumed or paused"),
+                    ));
+                }
+                sqlx::query("UPDATE campaigns SET state = $1, updated_at = $2 WHERE id = $3")
+                    .bind(&to)
+                    .bind(now)
+                    .bind(camp.id)
+                    .execute(&mut *c)
+                    .await?;
+                if to != "active" {
+                    super::leases::withdraw_campaign_leases(c, camp.id, now).await?;
+                }
+                Ok(camp.id)
+            }))
             .await?;
-        drop(_w);
-        self.campaign(name).await?.ok_or_else(|| not_found(name))
+        let _ = n2;
+        self.campaign_by_id(id).await
     }
 
     pub async fn campaign(&self, name: &str) -> Result<Option<CampaignRow>> {
-        let r = sqlx::query("SELECT * FROM campaigns WHERE name = ?")
+        let r = sqlx::query("SELECT * FROM campaigns WHERE name = $1")
             .bind(name)
-            .fetch_optional(&self.pool)
+            .fetch_optional(self.pool())
             .await?;
-        r.as_ref().map(campaign_from_row).transpose()
+        r.as_ref().map(CampaignRow::from_row).transpose()
+    }
+
+    async fn campaign_by_id(&self, id: i64) -> Result<CampaignRow> {
+        let r = sqlx::query("SELECT * FROM campaigns WHERE id = $1")
+            .bind(id)
+            .fetch_one(self.pool())
+            .await?;
+        CampaignRow::from_row(&r)
     }
 
     pub async fn campaigns(&self) -> Result<Vec<CampaignRow>> {
         let rows = sqlx::query("SELECT * FROM campaigns ORDER BY id")
-            .fetch_all(&self.pool)
+            .fetch_all(self.pool())
             .await?;
-        rows.iter().map(campaign_from_row).collect()
+        rows.iter().map(CampaignRow::from_row).collect()
     }
 
     pub async fn targets(&self, campaign_id: i64) -> Result<Vec<TargetRow>> {
-        let rows = sqlx::query("SELECT * FROM targets WHERE campaign_id = ? ORDER BY k")
+        let rows = sqlx::query("SELECT * FROM targets WHERE campaign_id = $1 ORDER BY k")
             .bind(campaign_id)
-            .fetch_all(&self.pool)
+            .fetch_all(self.pool())
             .await?;
-        rows.iter()
-            .map(|r| {
-                Ok(TargetRow {
-                    id: r.try_get("id")?,
-                    campaign_id: r.try_get("campaign_id")?,
-                    k: r.try_get("k")?,
-                    bound: r.try_get::<i64, _>("bound")? as u64,
-                    z0: r.try_get::<i64, _>("z0")? as u64,
-                })
-            })
-            .collect()
+        rows.iter().map(TargetRow::from_row).collect()
+    }
+
+    /// The planning history of a target, oldest first.
+    pub async fn target_plans(&self, target_id: i64) -> Result<Vec<PlanRow>> {
+        let rows = sqlx::query("SELECT * FROM target_plans WHERE target_id = $1 ORDER BY id")
+            .bind(target_id)
+            .fetch_all(self.pool())
+            .await?;
+        rows.iter().map(PlanRow::from_row).collect()
     }
 
     pub async fn unit(&self, id: i64) -> Result<Option<UnitRow>> {
-        let q = format!("SELECT {UNIT_COLUMNS} FROM units u JOIN targets t ON t.id = u.target_id JOIN campaigns c ON c.id = u.campaign_id WHERE u.id = ?");
-        let r = sqlx::query(&q).bind(id).fetch_optional(&self.pool).await?;
-        r.as_ref().map(unit_from_row).transpose()
+        let q = format!("{UNIT_SELECT} WHERE u.id = $1");
+        let r = sqlx::query(&q).bind(id).fetch_optional(self.pool()).await?;
+        r.as_ref().map(UnitRow::from_row).transpose()
     }
 
     /// Every unit of a target, in planned order.
     pub async fn target_units(&self, target_id: i64) -> Result<Vec<UnitRow>> {
-        let q = format!("SELECT {UNIT_COLUMNS} FROM units u JOIN targets t ON t.id = u.target_id JOIN campaigns c ON c.id = u.campaign_id WHERE u.target_id = ? ORDER BY u.id");
+        let q = format!("{UNIT_SELECT} WHERE u.target_id = $1 ORDER BY u.id");
         let rows = sqlx::query(&q)
             .bind(target_id)
-            .fetch_all(&self.pool)
+            .fetch_all(self.pool())
             .await?;
-        rows.iter().map(unit_from_row).collect()
+        rows.iter().map(UnitRow::from_row).collect()
     }
 }
 
-pub(super) fn not_found(name: &str) -> StoreError {
-    StoreError::NotFound(format!(
-        "no campaign named {name:?} (list them with `cubehunt-coordinator campaign list`)"
-    ))
+fn exists(name: &str) -> StoreError {
+    StoreError::Conflict(
+        "campaign_exists",
+        format!(
+            "a campaign named {name:?} already exists: choose another name, or extend that one"
+        ),
+    )
 }
 
-#[allow(clippy::too_many_arguments)]
-async fn insert_plan(
-    tx: &mut Transaction<'_, Sqlite>,
+fn check_extension(c: &CampaignRow, new_bound: u64) -> Result<()> {
+    if c.state == "cancelled" {
+        return Err(StoreError::Conflict(
+            "campaign_cancelled",
+            format!(
+                "campaign {:?} is cancelled and cannot be extended; create a new campaign",
+                c.name
+            ),
+        ));
+    }
+    if new_bound <= c.bound {
+        return Err(StoreError::Conflict(
+            "bound_not_larger",
+            format!(
+                "campaign {:?} already has bound {}; an extension needs a larger bound (got {new_bound})",
+                c.name, c.bound
+            ),
+        ));
+    }
+    Ok(())
+}
+
+async fn insert_units(
+    c: &mut AnyConnection,
     campaign_id: i64,
-    campaign: &str,
-    kernel: &str,
     target_id: i64,
-    plan: &TargetPlan,
+    units: &[SignedPlanned],
     bound_from: u64,
     bound_to: u64,
-    sign: Signer<'_>,
     now: i64,
 ) -> Result<()> {
-    let first: i64 = sqlx::query_scalar("SELECT coalesce(max(id), 0) + 1 FROM units")
-        .fetch_one(&mut **tx)
-        .await?;
-    let mut total_cost: u64 = 0;
-    for (chunk_no, chunk) in plan.units.chunks(INSERT_CHUNK).enumerate() {
-        let base = first + (chunk_no * INSERT_CHUNK) as i64;
-        // Signing dominates planning a big campaign: spread it over the cores.
-        let rows: Vec<(i64, &PlannedUnit, String)> = chunk
-            .par_iter()
-            .enumerate()
-            .map(|(i, pu)| {
-                let id = base + i as i64;
-                let spec = UnitSpec {
-                    unit_id: id,
-                    campaign: campaign.to_string(),
-                    k: plan.k,
-                    bound: bound_to,
-                    kernel: kernel.to_string(),
-                    rect: pu.rect,
-                    cost: pu.cost_us,
-                };
-                (id, pu, sign(&spec))
-            })
-            .collect();
-        for rows in rows.chunks(ROWS_PER_STATEMENT) {
-            let mut qb: QueryBuilder<Sqlite> = QueryBuilder::new(
-            "INSERT INTO units (id, target_id, campaign_id, region, d_lo, d_hi, z_lo, z_hi, bound, cost_us, signature) ",
+    const COLS: usize = 12;
+    for rows in units.chunks(ROWS_PER_STATEMENT) {
+        let sql = format!(
+            "INSERT INTO units (id, target_id, campaign_id, region, d_lo, d_hi, z_lo, z_hi, bound, cost_us, signature, recheck) VALUES {}",
+            values_placeholders(rows.len(), COLS)
         );
-            qb.push_values(rows, |mut b, (id, pu, sig)| {
-                b.push_bind(*id)
-                    .push_bind(target_id)
-                    .push_bind(campaign_id)
-                    .push_bind(pu.rect.region.name())
-                    .push_bind(int(pu.rect.d_lo))
-                    .push_bind(int(pu.rect.d_hi))
-                    .push_bind(int(pu.rect.z_lo))
-                    .push_bind(int(pu.rect.z_hi))
-                    .push_bind(int(bound_to))
-                    .push_bind(int(pu.cost_us))
-                    .push_bind(sig.clone());
-            });
-            qb.build().execute(&mut **tx).await?;
+        let mut q = sqlx::query(&sql);
+        for u in rows {
+            let r = &u.spec.rect;
+            q = q
+                .bind(u.spec.unit_id)
+                .bind(target_id)
+                .bind(campaign_id)
+                .bind(r.region.name().to_string())
+                .bind(int(r.d_lo))
+                .bind(int(r.d_hi))
+                .bind(int(r.z_lo))
+                .bind(int(r.z_hi))
+                .bind(int(u.spec.bound))
+                .bind(int(u.spec.cost))
+                .bind(u.signature.clone())
+                .bind(i64::from(u.recheck));
         }
-        total_cost = total_cost.saturating_add(chunk.iter().map(|u| u.cost_us).sum());
-        tokio::task::yield_now().await;
+        q.execute(&mut *c).await?;
     }
-    sqlx::query("INSERT INTO target_plans (target_id, bound_from, bound_to, units, cost_us, created_at) VALUES (?, ?, ?, ?, ?, ?)")
+    let total_cost: u64 = units
+        .iter()
+        .map(|u| u.spec.cost)
+        .fold(0u64, u64::saturating_add);
+    sqlx::query("INSERT INTO target_plans (target_id, bound_from, bound_to, units, cost_us, created_at) VALUES ($1, $2, $3, $4, $5, $6)")
         .bind(target_id)
         .bind(int(bound_from))
         .bind(int(bound_to))
-        .bind(plan.units.len() as i64)
+        .bind(units.len() as i64)
         .bind(int(total_cost))
         .bind(now)
-        .execute(&mut **tx)
+        .execute(&mut *c)
         .await?;
     Ok(())
+}
+
+/// `($1, …, $cols), ($cols+1, …), …` for `rows` rows: numbered placeholders, which both
+/// engines read the same way.
+pub(super) fn values_placeholders(rows: usize, cols: usize) -> String {
+    let mut s = String::with_capacity(rows * cols * 6);
+    for r in 0..rows {
+        if r > 0 {
+            s.push_str(", ");
+        }
+        s.push('(');
+        for c in 0..cols {
+            if c > 0 {
+                s.push_str(", ");
+            }
+            s.push('$');
+            s.push_str(&(r * cols + c + 1).to_string());
+        }
+        s.push(')');
+    }
+    s
 }

@@ -1,7 +1,6 @@
 //! Read-only views: progress per target, workers, solutions, counters for `/metrics`.
 
-use super::workers::worker_from_row;
-use super::{Result, Store, TargetRow};
+use super::{Result, SolutionRow, Store, TargetRow, WorkerRow};
 use cubehunt_common::Solution;
 use sqlx::Row;
 
@@ -14,6 +13,8 @@ pub struct UnitCounts {
     pub leased: i64,
     pub settled: i64,
     pub disputed: i64,
+    /// Units waiting for the organiser's side after too many disagreeing reports.
+    pub review: i64,
 }
 
 #[derive(Clone, Debug)]
@@ -43,7 +44,10 @@ pub struct WorkerView {
     pub last_seen: i64,
     pub reports: i64,
     pub units_settled: i64,
+    /// Reports the organiser's own computation confirmed.
+    pub confirmed: i64,
     pub errors: i64,
+    pub trusted: bool,
     pub quarantined: bool,
     pub active_leases: i64,
     /// Observed speed: reference-core seconds of work per wall second.
@@ -51,7 +55,7 @@ pub struct WorkerView {
 }
 
 #[derive(Clone, Debug, serde::Serialize)]
-pub struct SolutionRow {
+pub struct SolutionView {
     pub k: i64,
     pub solution: Solution,
     pub unit_id: i64,
@@ -73,10 +77,6 @@ pub struct MetricsSnapshot {
     pub solutions: i64,
 }
 
-fn parse_solution(a: String, b: String, c: String) -> Result<Solution> {
-    Solution::parse(&[a, b, c]).map_err(|e| super::StoreError::Db(sqlx::Error::Decode(e.into())))
-}
-
 impl Store {
     /// Progress of every target of a campaign; `since` starts the window of recent settlements.
     pub async fn campaign_stats(&self, campaign_id: i64, since: i64) -> Result<CampaignStats> {
@@ -89,14 +89,14 @@ impl Store {
 
     pub async fn target_stats(&self, target: TargetRow, since: i64) -> Result<TargetStats> {
         let rows = sqlx::query(
-            "SELECT state, count(*) AS n, coalesce(sum(cost_us), 0) AS cost, \
-                    coalesce(sum(active > 0), 0) AS leased, \
-                    coalesce(sum(CASE WHEN settled_at >= ? THEN cost_us ELSE 0 END), 0) AS recent \
-             FROM units WHERE target_id = ? GROUP BY state",
+            "SELECT state, count(*) AS n, CAST(coalesce(sum(cost_us), 0) AS BIGINT) AS cost, \
+                    CAST(coalesce(sum(CASE WHEN active > 0 THEN 1 ELSE 0 END), 0) AS BIGINT) AS leased, \
+                    CAST(coalesce(sum(CASE WHEN settled_at >= $1 THEN cost_us ELSE 0 END), 0) AS BIGINT) AS recent \
+             FROM units WHERE target_id = $2 GROUP BY state",
         )
         .bind(since)
         .bind(target.id)
-        .fetch_all(&self.pool)
+        .fetch_all(self.pool())
         .await?;
         let mut u = UnitCounts::default();
         let (mut cost_total, mut cost_settled, mut recent) = (0i64, 0i64, 0i64);
@@ -114,6 +114,7 @@ impl Store {
                     recent += r.try_get::<i64, _>("recent")?;
                 }
                 "disputed" => u.disputed += n,
+                "review" => u.review += n,
                 _ => u.open += n,
             }
         }
@@ -130,31 +131,32 @@ impl Store {
 
     /// Settled solutions of a target, sorted.
     pub async fn target_solutions(&self, target_id: i64) -> Result<Vec<Solution>> {
-        let rows = sqlx::query("SELECT a, b, c FROM solutions WHERE target_id = ?")
+        let rows = sqlx::query("SELECT * FROM solutions WHERE target_id = $1")
             .bind(target_id)
-            .fetch_all(&self.pool)
+            .fetch_all(self.pool())
             .await?;
         let mut v = rows
-            .into_iter()
-            .map(|r| parse_solution(r.get(0), r.get(1), r.get(2)))
+            .iter()
+            .map(|r| SolutionRow::from_row(r).map(|s| s.solution))
             .collect::<Result<Vec<_>>>()?;
         v.sort();
         Ok(v)
     }
 
     /// Settled solutions of a campaign with where they came from, sorted by k then triple.
-    pub async fn campaign_solutions(&self, campaign_id: i64) -> Result<Vec<SolutionRow>> {
-        let rows = sqlx::query("SELECT t.k, s.a, s.b, s.c, s.unit_id, s.found_at FROM solutions s JOIN targets t ON t.id = s.target_id WHERE t.campaign_id = ?")
+    pub async fn campaign_solutions(&self, campaign_id: i64) -> Result<Vec<SolutionView>> {
+        let rows = sqlx::query("SELECT s.*, t.k AS k FROM solutions s JOIN targets t ON t.id = s.target_id WHERE t.campaign_id = $1")
             .bind(campaign_id)
-            .fetch_all(&self.pool)
+            .fetch_all(self.pool())
             .await?;
         let mut v = Vec::new();
         for r in rows {
-            v.push(SolutionRow {
-                k: r.get(0),
-                solution: parse_solution(r.get(1), r.get(2), r.get(3))?,
-                unit_id: r.get(4),
-                found_at: r.get(5),
+            let s = SolutionRow::from_row(&r)?;
+            v.push(SolutionView {
+                k: r.try_get("k")?,
+                solution: s.solution,
+                unit_id: s.unit_id,
+                found_at: s.found_at,
             });
         }
         v.sort_by(|a, b| a.k.cmp(&b.k).then(a.solution.cmp(&b.solution)));
@@ -162,12 +164,12 @@ impl Store {
     }
 
     pub async fn workers(&self) -> Result<Vec<WorkerView>> {
-        let rows = sqlx::query("SELECT w.*, (SELECT count(*) FROM leases l WHERE l.worker_id = w.id AND l.state = 'active') AS active_leases FROM workers w ORDER BY w.id")
-            .fetch_all(&self.pool)
+        let rows = sqlx::query("SELECT * FROM workers ORDER BY id")
+            .fetch_all(self.pool())
             .await?;
         let mut v = Vec::new();
         for r in rows {
-            let w = worker_from_row(&r)?;
+            let w = WorkerRow::from_row(&r)?;
             v.push(WorkerView {
                 id: w.id,
                 owner: w.owner.clone(),
@@ -178,9 +180,11 @@ impl Store {
                 last_seen: w.last_seen,
                 reports: w.reports,
                 units_settled: w.units_settled,
+                confirmed: w.confirmed,
                 errors: w.errors,
+                trusted: w.trusted,
                 quarantined: w.quarantined,
-                active_leases: r.try_get("active_leases")?,
+                active_leases: w.active,
                 rate: w.observed_rate(),
             });
         }
@@ -190,36 +194,36 @@ impl Store {
     pub async fn metrics(&self) -> Result<MetricsSnapshot> {
         let mut m = MetricsSnapshot::default();
         for r in sqlx::query("SELECT c.name, u.state, count(*) FROM units u JOIN campaigns c ON c.id = u.campaign_id GROUP BY c.name, u.state ORDER BY c.name, u.state")
-            .fetch_all(&self.pool)
+            .fetch_all(self.pool())
             .await?
         {
             m.units.push((r.get(0), r.get(1), r.get(2)));
         }
         for r in sqlx::query("SELECT name, state FROM campaigns ORDER BY id")
-            .fetch_all(&self.pool)
+            .fetch_all(self.pool())
             .await?
         {
             m.campaigns.push((r.get(0), r.get(1)));
         }
         m.leases_active = sqlx::query_scalar("SELECT count(*) FROM leases WHERE state = 'active'")
-            .fetch_one(&self.pool)
+            .fetch_one(self.pool())
             .await?;
         for r in
             sqlx::query("SELECT verdict, count(*) FROM reports GROUP BY verdict ORDER BY verdict")
-                .fetch_all(&self.pool)
+                .fetch_all(self.pool())
                 .await?
         {
             m.reports.push((r.get(0), r.get(1)));
         }
         m.workers = sqlx::query_scalar("SELECT count(*) FROM workers")
-            .fetch_one(&self.pool)
+            .fetch_one(self.pool())
             .await?;
         m.workers_quarantined =
             sqlx::query_scalar("SELECT count(*) FROM workers WHERE quarantined = 1")
-                .fetch_one(&self.pool)
+                .fetch_one(self.pool())
                 .await?;
         m.solutions = sqlx::query_scalar("SELECT count(*) FROM solutions")
-            .fetch_one(&self.pool)
+            .fetch_one(self.pool())
             .await?;
         Ok(m)
     }

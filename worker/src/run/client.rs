@@ -1,14 +1,19 @@
 //! The worker's side of the protocol (`cubehunt_common::protocol`): signed JSON requests to
 //! the coordinator, and the classification of what comes back.
 //!
-//! Every request carries the three headers of `cubehunt_common::sign` over
-//! `request_bytes(method, path, time, body)`, where `path` is the URL path exactly as sent
-//! (so a coordinator behind a path prefix sees the same path). Answers are read up to a
-//! bound; anything larger is treated as a protocol error.
+//! Every request carries the four headers of `cubehunt_common::sign` (worker id, time, a
+//! fresh nonce, signature) over `request_bytes(stamp, method, path, body)`, where the stamp
+//! names the pinned coordinator key and `path` is the URL path exactly as sent (so a
+//! coordinator behind a path prefix sees the same path). Answers are read up to a bound;
+//! anything larger is treated as a protocol error.
+//!
+//! What counts as a refusal: only an answer in the coordinator's own error format (an
+//! `ApiError` body) with a 4xx status other than 408, 429 and a clock-skew refusal. Anything
+//! else — no answer, 5xx, 408, 429, a skewed clock, a proxy's error page — is "try again".
 
 use cubehunt_common::protocol::{
-    ApiError, EnrolRequest, EnrolResponse, HeartbeatRequest, HeartbeatResponse, LeaseRequest,
-    LeaseResponse, ReleaseResponse, ReportResponse,
+    About, ApiError, EnrolRequest, EnrolResponse, HeartbeatRequest, HeartbeatResponse,
+    LeaseRequest, LeaseResponse, ReleaseResponse, ReportResponse,
 };
 use cubehunt_common::report::SignedReport;
 use cubehunt_common::sign;
@@ -59,6 +64,8 @@ pub struct Api {
     base: Url,
     key: Arc<sign::SecretKey>,
     worker_id: i64,
+    /// Hex public key of the coordinator, named in every signed request.
+    coordinator_key: String,
 }
 
 impl Api {
@@ -83,7 +90,12 @@ impl Api {
             base,
             key: Arc::new(key),
             worker_id: 0,
+            coordinator_key: String::new(),
         })
+    }
+
+    pub fn set_coordinator_key(&mut self, hex: &str) {
+        self.coordinator_key = hex.trim().to_ascii_lowercase();
     }
 
     pub fn set_worker_id(&mut self, id: i64) {
@@ -113,21 +125,44 @@ impl Api {
             .join(rel)
             .map_err(|e| CallError::Protocol(format!("bad path {rel}: {e}")))?;
         let bytes = serde_json::to_vec(body).map_err(|e| CallError::Protocol(e.to_string()))?;
-        let time = unix_now();
+        let stamp = sign::Stamp::new(&self.coordinator_key, self.worker_id, unix_now());
         let sig = sign::sign(
             &self.key,
-            &sign::request_bytes("POST", url.path(), time, &bytes),
+            &sign::request_bytes(&stamp, "POST", url.path(), &bytes),
         );
         let resp = self
             .http
             .post(url.clone())
             .header(reqwest::header::CONTENT_TYPE, "application/json")
             .header(sign::HDR_WORKER, self.worker_id.to_string())
-            .header(sign::HDR_TIME, time.to_string())
+            .header(sign::HDR_TIME, stamp.time.to_string())
+            .header(sign::HDR_NONCE, &stamp.nonce)
             .header(sign::HDR_SIGNATURE, sig)
             .body(bytes)
             .send()
             .map_err(|e| CallError::Unreachable(describe(&e)))?;
+        self.answer(url, resp)
+    }
+
+    /// GET a JSON document (not signed), e.g. `api/v1/about`.
+    pub fn get<A: DeserializeOwned>(&self, rel: &str) -> Result<A, CallError> {
+        let url = self
+            .base
+            .join(rel)
+            .map_err(|e| CallError::Protocol(format!("bad path {rel}: {e}")))?;
+        let resp = self
+            .http
+            .get(url.clone())
+            .send()
+            .map_err(|e| CallError::Unreachable(describe(&e)))?;
+        self.answer(url, resp)
+    }
+
+    fn answer<A: DeserializeOwned>(
+        &self,
+        url: Url,
+        resp: reqwest::blocking::Response,
+    ) -> Result<A, CallError> {
         let status = resp.status();
         let mut buf = Vec::new();
         resp.take(MAX_ANSWER_BYTES + 1)
@@ -149,12 +184,21 @@ impl Api {
         }
         let (error, message) = match serde_json::from_slice::<ApiError>(&buf) {
             Ok(a) => (a.error, a.message),
-            Err(_) => (
-                "http_error".to_string(),
-                String::from_utf8_lossy(&buf).chars().take(300).collect(),
-            ),
+            Err(_) => {
+                // Not the coordinator's own answer (a proxy's or load balancer's page):
+                // nothing was decided about this request.
+                let text: String = String::from_utf8_lossy(&buf).chars().take(200).collect();
+                return Err(CallError::Unreachable(format!(
+                    "{} from something that is not the coordinator: {text}",
+                    status.as_u16()
+                )));
+            }
         };
-        if status.is_server_error() || status.as_u16() == 429 || status.as_u16() == 408 {
+        if status.is_server_error()
+            || status.as_u16() == 429
+            || status.as_u16() == 408
+            || error == "clock_skew"
+        {
             return Err(CallError::Unreachable(format!(
                 "{} {error}: {message}",
                 status.as_u16()
@@ -165,6 +209,10 @@ impl Api {
             error,
             message,
         })
+    }
+
+    pub fn about(&self) -> Result<About, CallError> {
+        self.get("api/v1/about")
     }
 
     pub fn enrol(&self, req: &EnrolRequest) -> Result<EnrolResponse, CallError> {
