@@ -27,8 +27,21 @@ pub fn parse_u64(s: &str) -> Result<u64, String> {
         return Err(bad());
     }
     let frac = frac.trim_end_matches('0');
+    let int = int.trim_start_matches('0');
+    if int.is_empty() && frac.is_empty() {
+        return Ok(0);
+    }
     if frac.len() as u32 > exp {
         return Err(format!("{s:?} is not an integer"));
+    }
+    // Bound the size before building any digits: the value is the digits of `int` and
+    // `frac` times 10^(exp − frac.len()), and u64::MAX has 20 digits.
+    let significant = format!("{int}{frac}").trim_start_matches('0').len() as u64;
+    if significant + u64::from(exp) - frac.len() as u64 > 20 {
+        return Err(format!(
+            "{s:?} exceeds the largest supported value {}",
+            u64::MAX
+        ));
     }
     let digits = format!(
         "{int}{frac}{}",
@@ -108,6 +121,20 @@ mod tests {
             assert!(parse_u64(bad).is_err(), "{bad}");
         }
         assert!(parse_i64("9223372036854775808").is_err());
+        // Huge exponents are refused before any digit is built (no allocation of their size).
+        for huge in [
+            "1e800000000",
+            "9e4294967295",
+            "0.5e800000000",
+            "-1e800000000",
+        ] {
+            let e = parse_i64(huge).unwrap_err();
+            assert!(e.contains("exceeds") || e.contains("below"), "{huge}: {e}");
+        }
+        assert_eq!(parse_u64("0e800000000").unwrap(), 0);
+        assert_eq!(parse_u64("0.0e9").unwrap(), 0);
+        assert_eq!(parse_u64("1.8446744073709551615e19").unwrap(), u64::MAX);
+        assert_eq!(parse_u64("0.00001e10").unwrap(), 100_000);
         assert!(parse_i64_list("1,2,1").is_err());
     }
 }

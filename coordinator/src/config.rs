@@ -74,7 +74,7 @@ pub struct ServiceConfig {
     pub leases_per_owner: u32,
     /// An offer (a unit's further lease reserved for a randomly drawn worker) lapses after
     /// this many seconds if the worker has not asked for work.
-    #[arg(long, env = "CUBEHUNT_OFFER_S", default_value_t = 300)]
+    #[arg(long, env = "CUBEHUNT_OFFER_S", default_value_t = 120)]
     pub offer_s: u64,
     /// Workers seen within this many seconds can be drawn for offers.
     #[arg(long, env = "CUBEHUNT_ACTIVE_WINDOW_S", default_value_t = 900)]

@@ -126,7 +126,7 @@ fn value_text(arg: &Arg, key: &str, v: &toml::Value) -> Result<String, String> {
         toml::Value::String(s) if !flag => s.clone(),
         toml::Value::Integer(i) if !flag => i.to_string(),
         toml::Value::Float(x) if !flag => x.to_string(),
-        toml::Value::Boolean(b) if flag => b.to_string(),
+        toml::Value::Boolean(b) => b.to_string(),
         _ if flag => {
             return Err(format!(
                 "`{key}` is an on/off setting: write `{key} = true` or `{key} = false`"

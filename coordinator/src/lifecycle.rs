@@ -533,6 +533,19 @@ pub fn escape_probability(q: f64, r: u32) -> f64 {
     (1.0 - q.clamp(0.0, 1.0)).powi(r as i32)
 }
 
+/// Probability that a colluding pair escapes when it fakes `units` units together (both
+/// partners report the same invented share `q` of each unit's pieces), each report has `r`
+/// pieces spot-checked and each unit is recomputed in full with probability `recheck_share`:
+/// `((1 − s) · (1 − q)^(2r))^units` — every one of the `2·units` reports must escape its
+/// spot checks and no faked unit may be among the rechecked ones (pieces drawn with
+/// replacement; the coordinator draws without, which only lowers the chance of escape). One
+/// caught report is enough for both: it sends the unit to the organiser's side, whose result
+/// proves the partner's identical report wrong as well.
+pub fn pair_escape_probability(q: f64, r: u32, recheck_share: f64, units: u32) -> f64 {
+    let one = (1.0 - recheck_share.clamp(0.0, 1.0)) * escape_probability(q, r).powi(2);
+    one.powi(units as i32)
+}
+
 /// Whether the organiser's computation of one piece confirms a report's claim: the same
 /// digest, and the report's solutions inside that piece are exactly the computed ones.
 pub fn piece_confirms(
@@ -778,6 +791,51 @@ mod tests {
         }
         assert!(hits.iter().all(|&h| (1790..=2210).contains(&h)), "{hits:?}");
         assert!((escape_probability(0.1, 2) - 0.81).abs() < 1e-12);
+    }
+
+    /// A colluding pair that fakes `units` units together, measured with seeded draws of the
+    /// real [`draw_pieces`] and a seeded recheck sample, against [`pair_escape_probability`]
+    /// (its bound) and the exact law for draws without replacement.
+    #[test]
+    fn a_colluding_pair_escapes_at_the_stated_rate() {
+        use rand::{Rng, SeedableRng};
+        let mut rng = rand::rngs::StdRng::seed_from_u64(7);
+        let (n, m) = (64usize, 8usize); // q = 1/8 of the pieces invented
+        let invented: BTreeSet<usize> = (0..m).map(|i| i * (n / m)).collect();
+        for (r, share, units) in [
+            (2u32, 0.02f64, 1u32),
+            (2, 0.02, 4),
+            (1, 0.1, 3),
+            (3, 0.0, 2),
+        ] {
+            let trials = 20_000u32;
+            let escaped = (0..trials)
+                .filter(|_| {
+                    (0..units).all(|_| {
+                        let rechecked = rng.gen::<f64>() < share;
+                        let report_escapes = |rng: &mut rand::rngs::StdRng| {
+                            draw_pieces(n, r, || rng.gen::<u64>())
+                                .iter()
+                                .all(|p| !invented.contains(p))
+                        };
+                        !rechecked && report_escapes(&mut rng) && report_escapes(&mut rng)
+                    })
+                })
+                .count() as f64
+                / trials as f64;
+            let one: f64 = (0..r as usize)
+                .map(|i| (n - m - i) as f64 / (n - i) as f64)
+                .product();
+            let exact = ((1.0 - share) * one * one).powi(units as i32);
+            let sd = (exact * (1.0 - exact) / trials as f64).sqrt().max(1e-4);
+            assert!(
+                (escaped - exact).abs() < 5.0 * sd,
+                "r={r} s={share} units={units}: measured {escaped}, exact {exact}"
+            );
+            let bound = pair_escape_probability(m as f64 / n as f64, r, share, units);
+            assert!(exact <= bound + 1e-12);
+            assert!(escaped <= bound + 5.0 * sd);
+        }
     }
 
     /// A worker that invents `m` of `n` piece digests escapes `r` spot checks drawn without

@@ -27,11 +27,11 @@ fn describe(code: &str) -> &'static str {
     match code {
         "400" => "Malformed request; the body says what was wrong",
         "401" => "Missing or wrong credentials (admin token, or worker signature / clock)",
-        "403" => "Not allowed (someone else's lease, quarantined worker)",
+        "403" => "Not allowed (someone else's lease, quarantined worker or owner)",
         "404" => "No such campaign or lease",
-        "409" => "Conflicts with the current state",
+        "409" => "Conflicts with the current state, or a replayed request (error replayed)",
         "413" => "Body larger than 262144 bytes",
-        "422" => "Refused: false claimed solution, or a plan with too many units",
+        "422" => "Refused and counted against the worker: a false or misplaced solution, counts that differ from the unit's, zero work; or a plan with too many units",
         _ => "Error",
     }
 }
@@ -57,7 +57,7 @@ fn body(name: &str) -> Value {
 fn signed_op(summary: &str, req: Option<&str>, resp: &str, errs: &[&str]) -> Value {
     let mut op = json!({
         "summary": summary,
-        "security": [{"workerSignature": [], "workerId": [], "workerTime": []}],
+        "security": [{"workerSignature": [], "workerId": [], "workerTime": [], "workerNonce": []}],
         "responses": with_errors(ok(r(resp)), errs),
     });
     if let Some(req) = req {
@@ -129,7 +129,7 @@ pub fn spec() -> Value {
     json!({
       "openapi": "3.1.0",
       "info": {"title": "cubehunt coordinator", "version": env!("CARGO_PKG_VERSION"),
-        "description": "Campaigns searching x³+y³+z³=k, the worker protocol and read-only monitoring. Worker requests carry x-cubehunt-worker (id; 0 for enrolment), x-cubehunt-time (unix seconds, within 300 s) and x-cubehunt-signature (Ed25519, hex, over request_bytes(method, path, time, body) of cubehunt-common). Errors are ApiError bodies."},
+        "description": "Campaigns searching x³+y³+z³=k, the worker protocol and read-only monitoring. Worker requests carry x-cubehunt-worker (id; 0 for enrolment), x-cubehunt-time (unix seconds, within 300 s), x-cubehunt-nonce (32 lowercase hex, never used twice: a repeated request is refused with 409 replayed) and x-cubehunt-signature (Ed25519, hex, over request_bytes(stamp, method, path, body) of cubehunt-common, format cubehunt-request/2, which names the coordinator's public key from GET /api/v1/about, so a request signed for one coordinator is refused by any other). Errors are ApiError bodies."},
       "paths": {
         "/healthz": {"get": {"summary": "Liveness and schema version", "responses": {"200": ok(json!({"type": "object"}))}}},
         "/metrics": {"get": {"summary": "Prometheus text format counters", "responses": {"200": {"description": "OK", "content": {"text/plain": {"schema": {"type": "string"}}}}}}},
@@ -141,22 +141,39 @@ pub fn spec() -> Value {
         "/api/v1/campaigns/{name}/solutions": {"get": {"summary": "Settled solutions with the unit that found them", "parameters": [name_param()],
             "responses": with_errors(ok(json!({"type": "array", "items": r("SolutionRecord")})), &["404"])}},
         "/api/v1/workers": {"get": {"summary": "Enrolled workers", "responses": {"200": ok(json!({"type": "array", "items": r("Worker")}))}}},
+        "/api/v1/about": {"get": {"summary": "The coordinator's public key, kernel version and enrolment mode (fetch and pin the key before enrolling)",
+            "responses": {"200": ok(r("About"))}}},
+        "/api/v1/admin/invites": {
+            "get": {"summary": "Invitations (admin; tokens are never shown again)", "security": admin_sec, "responses": with_errors(ok(json!({"type": "array", "items": {"type": "object"}})), &["401"])},
+            "post": {"summary": "Make an invitation for one owner (admin); the token is shown once", "security": admin_sec,
+                "requestBody": {"required": true, "content": {"application/json": {"schema": {"type": "object", "required": ["owner"], "properties": {
+                    "owner": {"type": "string"}, "workers": {"type": "integer"}, "expires_in_s": {"type": "integer"}, "note": {"type": "string"}}}}}},
+                "responses": with_errors(ok(json!({"type": "object"})), &["400", "401", "413"])}},
+        "/api/v1/admin/incidents": {"get": {"summary": "Proven mismatches and quarantines, oldest first, 500 per page (admin)", "security": admin_sec,
+            "parameters": [{"name": "after", "in": "query", "required": false, "schema": {"type": "integer"}, "description": "the next_after of the previous page"}],
+            "responses": with_errors(ok(json!({"type": "object", "properties": {"incidents": {"type": "array", "items": r("Incident")}, "next_after": {"type": "integer"}}})), &["400", "401"])}},
+        "/api/v1/admin/workers/{id}/{action}": {"post": {"summary": "trust, distrust or quarantine a worker by hand (admin; quarantine voids its reports and reopens what they settled)",
+            "security": admin_sec,
+            "parameters": [{"name": "id", "in": "path", "required": true, "schema": {"type": "integer"}},
+                {"name": "action", "in": "path", "required": true, "schema": {"type": "string", "enum": ["trust", "distrust", "quarantine"]}}],
+            "requestBody": {"required": false, "content": {"application/json": {"schema": {"type": "object", "properties": {"reason": {"type": "string"}}}}}},
+            "responses": with_errors(ok(r("Worker")), &["400", "401", "404", "413"])}},
         "/api/v1/enrol": {"post": {"summary": "Enrol a worker key under an owner (signed with that key, worker id 0)",
-            "security": [{"workerSignature": [], "workerId": [], "workerTime": []}], "requestBody": body("EnrolRequest"),
+            "security": [{"workerSignature": [], "workerId": [], "workerTime": [], "workerNonce": []}], "requestBody": body("EnrolRequest"),
             "responses": with_errors(ok(r("EnrolResponse")), &["400", "401", "409", "413"])}},
         "/api/v1/lease": {"post": signed_op("Ask for a unit to compute", Some("LeaseRequest"), "LeaseResponse", &["400", "401", "403", "413"])},
         "/api/v1/lease/{id}/heartbeat": {"post": {
             "parameters": lease_param(),
-            "summary": "Extend a held lease; keep_going=false means stop", "security": [{"workerSignature": [], "workerId": [], "workerTime": []}],
+            "summary": "Extend a held lease; keep_going=false means stop", "security": [{"workerSignature": [], "workerId": [], "workerTime": [], "workerNonce": []}],
             "requestBody": body("HeartbeatRequest"), "responses": with_errors(ok(r("HeartbeatResponse")), &["400", "401", "403", "404", "413"])}},
         "/api/v1/lease/{id}/report": {"post": {
             "parameters": lease_param(),
             "summary": "Report a held lease's result; accepted=false for a repeat of a stored report",
-            "security": [{"workerSignature": [], "workerId": [], "workerTime": []}],
+            "security": [{"workerSignature": [], "workerId": [], "workerTime": [], "workerNonce": []}],
             "requestBody": body("SignedReport"), "responses": with_errors(ok(r("ReportResponse")), &["400", "401", "403", "404", "409", "413", "422"])}},
         "/api/v1/lease/{id}/release": {"post": {
             "parameters": lease_param(),
-            "summary": "Give a lease back", "security": [{"workerSignature": [], "workerId": [], "workerTime": []}],
+            "summary": "Give a lease back", "security": [{"workerSignature": [], "workerId": [], "workerTime": [], "workerNonce": []}],
             "responses": with_errors(ok(r("ReleaseResponse")), &["400", "401", "403", "404"])}},
         "/api/v1/admin/campaigns": {
             "get": {"summary": "Every campaign (admin)", "security": admin_sec, "responses": with_errors(ok(json!({"type": "array", "items": r("Campaign")})), &["401"])},
@@ -175,7 +192,8 @@ pub fn spec() -> Value {
           "adminToken": {"type": "http", "scheme": "bearer", "description": "the token printed by init, kept in <data-dir>/admin.token"},
           "workerId": {"type": "apiKey", "in": "header", "name": "x-cubehunt-worker"},
           "workerTime": {"type": "apiKey", "in": "header", "name": "x-cubehunt-time"},
-          "workerSignature": {"type": "apiKey", "in": "header", "name": "x-cubehunt-signature"}
+          "workerSignature": {"type": "apiKey", "in": "header", "name": "x-cubehunt-signature"},
+          "workerNonce": {"type": "apiKey", "in": "header", "name": "x-cubehunt-nonce"}
         },
         "schemas": {
           "ApiError": {"type": "object", "required": ["error", "message"], "properties": {"error": {"type": "string"}, "message": {"type": "string"}}},
@@ -198,7 +216,7 @@ pub fn spec() -> Value {
           "ExtendCampaign": {"type": "object", "required": ["bound"], "properties": {"bound": count}},
           "EnrolRequest": {"type": "object", "required": ["owner", "public_key", "kernel", "threads"], "properties": {
               "owner": {"type": "string", "pattern": "^[A-Za-z0-9._-]{1,64}$"}, "public_key": {"type": "string", "description": "64 hex"},
-              "kernel": {"type": "string"}, "threads": {"type": "integer"}, "label": {"type": "string", "maxLength": 64}}},
+              "kernel": {"type": "string"}, "threads": {"type": "integer"}, "label": {"type": "string", "maxLength": 64}, "invite": {"type": "string", "description": "the invitation token, when enrolment is by invitation"}}},
           "EnrolResponse": {"type": "object", "properties": {"worker_id": {"type": "integer"}, "coordinator_key": {"type": "string"}}},
           "LeaseRequest": {"type": "object", "properties": {"threads": {"type": "integer"}}},
           "UnitSpec": {"type": "object", "properties": {"unit_id": {"type": "integer"}, "campaign": {"type": "string"}, "k": {"type": "integer"},
@@ -209,12 +227,23 @@ pub fn spec() -> Value {
           "LeaseResponse": {"type": "object", "properties": {"lease": {"oneOf": [r("LeaseGrant"), {"type": "null"}]}, "retry_after_s": {"type": "integer"}}},
           "HeartbeatRequest": {"type": "object", "properties": {"progress": {"type": "number"}}},
           "HeartbeatResponse": {"type": "object", "properties": {"deadline": {"type": "integer"}, "keep_going": {"type": "boolean"}}},
-          "Report": {"type": "object", "required": ["lease_id", "unit_id", "worker_id", "kernel", "k", "rect", "digest", "solutions"], "properties": {
+          "Report": {"type": "object", "additionalProperties": false, "required": ["lease_id", "unit_id", "worker_id", "kernel", "k", "rect", "digest", "pieces", "solutions"], "properties": {
               "lease_id": {"type": "integer"}, "unit_id": {"type": "integer"}, "worker_id": {"type": "integer"}, "kernel": {"type": "string"},
-              "k": {"type": "integer"}, "rect": r("Rect"), "digest": r("Digest"), "solutions": {"type": "array", "items": triple, "maxItems": 1000},
+              "k": {"type": "integer"}, "rect": r("Rect"),
+              "digest": {"type": "string", "description": "digest text h<hash hex>-d<d values>-r<classes>-c<candidates>-s<survivors>; the sum of the pieces"},
+              "pieces": {"type": "array", "items": {"type": "string"}, "maxItems": 1024, "description": "the digest of every piece of the unit's fixed split (common::pieces), in order; the signature covers their Merkle root"},
+              "solutions": {"type": "array", "items": triple, "maxItems": 1000},
               "elapsed_s": {"type": "number"}}},
           "SignedReport": {"type": "object", "properties": {"report": r("Report"), "signature": {"type": "string", "description": "worker Ed25519 over Report::canonical_bytes"}}},
-          "ReportResponse": {"type": "object", "properties": {"accepted": {"type": "boolean"}, "unit_state": {"type": "string", "enum": ["open", "disputed", "settled"]}}},
+          "ReportResponse": {"type": "object", "properties": {"accepted": {"type": "boolean"}, "unit_state": {"type": "string", "enum": ["open", "disputed", "review", "settled"]}}},
+          "About": {"type": "object", "properties": {"coordinator_key": {"type": "string", "description": "64 hex"}, "kernel": {"type": "string"},
+              "enrolment": {"type": "string", "enum": ["open", "invite"]}}},
+          "Incident": {"type": "object", "properties": {"id": {"type": "integer"}, "at": {"type": "integer"},
+              "kind": {"type": "string", "enum": ["piece_mismatch", "unit_mismatch", "too_many_errors", "admin"]},
+              "worker_id": {"type": "integer"}, "report_id": {"type": ["integer", "null"]}, "unit_id": {"type": ["integer", "null"]},
+              "spot_check_id": {"type": ["integer", "null"]}, "detail": {"type": "string"},
+              "quarantined": {"type": "array", "items": {"type": "integer"}}, "voided": {"type": "array", "items": {"type": "integer"}},
+              "rechecked": {"type": "array", "items": {"type": "integer"}}}},
           "ReleaseResponse": {"type": "object", "properties": {"released": {"type": "boolean"}}}
         }
       }

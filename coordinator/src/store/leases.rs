@@ -56,7 +56,7 @@ impl Default for LeasePolicy {
             floor_s: 300,
             ceiling_s: 7 * 86400,
             grace_s: 180,
-            offer_s: 300,
+            offer_s: 120,
             active_window_s: 600,
             distinct_prefix: false,
             fresh_window: 64,
@@ -215,6 +215,22 @@ impl Store {
             }
             if was_active {
                 offer_if_wanted(c, lease.unit_id, &policy, call.now).await?;
+                // A worker that hands a lease back is usually stopping: the units it was
+                // drawn for go to others rather than wait for its offers to lapse.
+                let offered: Vec<i64> =
+                    sqlx::query_scalar("SELECT id FROM units WHERE offered_to = $1")
+                        .bind(w.id)
+                        .fetch_all(&mut *c)
+                        .await?;
+                sqlx::query(
+                    "UPDATE units SET offered_to = NULL, offered_at = NULL WHERE offered_to = $1",
+                )
+                .bind(w.id)
+                .execute(&mut *c)
+                .await?;
+                for u in offered {
+                    draw_offer(c, u, &policy, call.now, w.id).await?;
+                }
             }
             Ok(was_active)
         }))
@@ -363,7 +379,7 @@ async fn lapse_offers(c: &mut AnyConnection, now: i64, policy: &LeasePolicy) -> 
     .fetch_all(&mut *c)
     .await?;
     for u in wanting {
-        draw_offer(c, u, policy, now).await?;
+        draw_offer(c, u, policy, now, 0).await?;
     }
     Ok(())
 }
@@ -568,7 +584,7 @@ pub(super) async fn offer_if_wanted(
     ) && u.need > u.active
         && u.offered_to.is_none();
     if wants {
-        draw_offer(c, unit_id, policy, now).await?;
+        draw_offer(c, unit_id, policy, now, 0).await?;
     }
     Ok(())
 }
@@ -578,12 +594,14 @@ pub(super) async fn offer_if_wanted(
 ///
 /// The draw walks workers in the order of a random key from a random starting point and
 /// takes the first eligible one, then gives that worker a new random key. Keys are the
-/// coordinator's own randomness, so no worker can place itself next to another.
+/// coordinator's own randomness, so no worker can place itself next to another. `except`
+/// (a worker id, or 0) is never drawn.
 pub(super) async fn draw_offer(
     c: &mut AnyConnection,
     unit_id: i64,
     policy: &LeasePolicy,
     now: i64,
+    except: i64,
 ) -> Result<Option<i64>> {
     let u = load_unit(c, unit_id).await?;
     let known = i64::from(u.known.is_some());
@@ -597,7 +615,7 @@ pub(super) async fn draw_offer(
     let mut chosen: Option<i64> = None;
     for (cmp, order) in [(">=", "ASC"), ("<", "ASC")] {
         let q = format!(
-            "SELECT w.id FROM workers w WHERE {eligible} AND w.draw_key {cmp} $8 ORDER BY w.draw_key {order} LIMIT 1"
+            "SELECT w.id FROM workers w WHERE {eligible} AND w.id <> $9 AND w.draw_key {cmp} $8 ORDER BY w.draw_key {order} LIMIT 1"
         );
         chosen = sqlx::query_scalar(&q)
             .bind(&u.spec.kernel)
@@ -608,6 +626,7 @@ pub(super) async fn draw_offer(
             .bind(unit_id)
             .bind(i64::from(policy.distinct_prefix))
             .bind(start)
+            .bind(except)
             .fetch_optional(&mut *c)
             .await?;
         if chosen.is_some() {

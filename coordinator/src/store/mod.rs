@@ -240,12 +240,79 @@ macro_rules! op {
 }
 
 #[cfg(test)]
-pub(crate) mod testutil {
+mod tests {
     use super::*;
+
     /// A fresh store in a temporary directory (kept alive by the returned guard).
-    pub async fn temp_store() -> (Store, tempfile::TempDir) {
+    async fn temp_store() -> (Store, tempfile::TempDir) {
         let dir = tempfile::tempdir().unwrap();
         let store = Store::open(&dir.path().join("t.db"), true).await.unwrap();
         (store, dir)
+    }
+
+    async fn insert_counter(store: &Store, name: &str, fail: bool) -> Result<i64> {
+        let name = name.to_string();
+        store
+            .write(op!(|c| {
+                sqlx::query("INSERT INTO counters (name, next) VALUES ($1, 7)")
+                    .bind(&name)
+                    .execute(&mut *c)
+                    .await?;
+                if fail {
+                    return Err(StoreError::Conflict(
+                        "test",
+                        "this operation fails after writing".into(),
+                    ));
+                }
+                Ok(7)
+            }))
+            .await
+    }
+
+    async fn counter_names(store: &Store) -> Vec<String> {
+        sqlx::query_scalar("SELECT name FROM counters WHERE name LIKE 't-%' ORDER BY name")
+            .fetch_all(store.pool())
+            .await
+            .unwrap()
+    }
+
+    /// Operations sent together share a commit, but one that fails leaves no trace and does
+    /// not take the others with it; every answered write survives closing and reopening.
+    #[tokio::test(flavor = "multi_thread")]
+    async fn a_failing_operation_is_undone_alone_and_answered_writes_last() {
+        let (store, dir) = temp_store().await;
+        let store = std::sync::Arc::new(store);
+        let mut tasks = Vec::new();
+        for i in 0..40 {
+            let st = store.clone();
+            tasks.push(tokio::spawn(async move {
+                insert_counter(&st, &format!("t-{i:02}"), i % 5 == 0).await
+            }));
+        }
+        let mut ok = Vec::new();
+        for (i, t) in tasks.into_iter().enumerate() {
+            match t.await.unwrap() {
+                Ok(_) => ok.push(format!("t-{i:02}")),
+                Err(StoreError::Conflict("test", _)) => assert_eq!(i % 5, 0),
+                Err(e) => panic!("{e}"),
+            }
+        }
+        assert_eq!(ok.len(), 32);
+        assert_eq!(counter_names(&store).await, ok);
+        store.close().await;
+        let again = Store::open(&dir.path().join("t.db"), false).await.unwrap();
+        assert_eq!(counter_names(&again).await, ok, "after reopening");
+        again.close().await;
+    }
+
+    /// The schema is applied once and reopening finds the same version.
+    #[tokio::test]
+    async fn reopening_keeps_the_schema() {
+        let (store, dir) = temp_store().await;
+        let v = store.schema_version().await.unwrap();
+        assert!(v >= 1);
+        store.close().await;
+        let again = Store::open(&dir.path().join("t.db"), false).await.unwrap();
+        assert_eq!(again.schema_version().await.unwrap(), v);
     }
 }

@@ -117,7 +117,8 @@ impl Store {
     /// Enrol a key. The same key enrolling again under the same owner gets its old id back
     /// (with kernel, threads and label updated); under another owner it is refused. When
     /// enrolment is by invitation a new key needs an unexpired invitation for its owner,
-    /// and uses up one of its enrolments.
+    /// and uses up one of its enrolments. A new key of an owner with a quarantined worker is
+    /// refused.
     pub async fn enrol(
         &self,
         w: &NewWorker,
@@ -151,6 +152,16 @@ impl Store {
                     .execute(&mut *c)
                     .await?;
                 return Ok(EnrolOutcome { worker: load_worker(c, old.id).await?, created: false });
+            }
+            let quarantined: i64 = sqlx::query_scalar("SELECT count(*) FROM workers WHERE owner = $1 AND quarantined = 1")
+                .bind(&w.owner)
+                .fetch_one(&mut *c)
+                .await?;
+            if quarantined > 0 {
+                return Err(StoreError::Forbidden(
+                    "owner_quarantined",
+                    format!("owner {:?} has quarantined workers; new machines of this owner are not enrolled until the organiser has looked into it", w.owner),
+                ));
             }
             let invite_id = if w.invite_only {
                 Some(take_invite(c, w.invite_sha256.as_deref(), &w.owner, now).await?)
