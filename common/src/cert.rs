@@ -733,7 +733,8 @@ fn recount(doc: &Certificate, opts: &VerifyOptions) -> Vec<Finding> {
 }
 
 /// Re-run one unit with the local kernel and compare its digest with `expected`; every
-/// solution the kernel finds must be among `known`.
+/// solution the kernel finds that belongs to the unit ([`Solution::in_rect`]) must be among
+/// `known`.
 pub fn recheck_unit(
     k: i64,
     id: i64,
@@ -760,7 +761,7 @@ pub fn recheck_unit(
                     ),
                 ));
             }
-            for s in &out.solutions {
+            for s in out.solutions.iter().filter(|s| s.in_rect(rect)) {
                 if !known.contains(s) {
                     f.push(Finding::error(
                         "recheck",

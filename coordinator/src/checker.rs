@@ -60,7 +60,13 @@ pub fn compute(job: &CheckJob) -> Result<Outcome, String> {
         CheckJob::Piece { k, rect, .. } | CheckJob::Unit { k, rect, .. } => (*k, *rect),
     };
     let out = kernel::scan(k, &rect, 1, &|_| {}).map_err(|e| e.to_string())?;
-    Ok(Outcome::new(out.digest, out.solutions))
+    // Only the solutions that belong to the rectangle (as reports list them).
+    let mine = out
+        .solutions
+        .into_iter()
+        .filter(|s| s.in_rect(&rect))
+        .collect();
+    Ok(Outcome::new(out.digest, mine))
 }
 
 async fn round_loop(st: Shared, tx: mpsc::Sender<Task>, threads: usize) {
@@ -166,5 +172,89 @@ fn lower_thread_priority() {
         libc::setpriority(libc::PRIO_PROCESS, tid, 19);
         let param = libc::sched_param { sched_priority: 0 };
         libc::sched_setscheduler(0, libc::SCHED_IDLE, &param);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::lifecycle::piece_confirms;
+    use cubehunt_common::{pieces, Rect, Region, Solution, UnitSpec, KERNEL_VERSION};
+
+    fn unit(k: i64, rect: Rect, cost: u64) -> UnitSpec {
+        UnitSpec {
+            unit_id: 1,
+            campaign: "t".into(),
+            k,
+            bound: rect.z_hi,
+            kernel: KERNEL_VERSION.into(),
+            rect,
+            cost,
+        }
+    }
+
+    /// An honest report (what the worker sends: every piece's digest, the unit's own
+    /// solutions) is confirmed on every piece, including pieces where the kernel meets a
+    /// solution through a coordinate that is not its smallest (k = 29 = 1 + 1 + 27 =
+    /// (−3)³ + (−2)³ + 4³, from memory, verified exactly here; brute force over the pieces).
+    #[test]
+    fn every_piece_of_an_honest_report_is_confirmed() {
+        let small = |z_lo, z_hi| Rect {
+            region: Region::Small,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo,
+            z_hi,
+        };
+        let main = |z_lo| Rect {
+            region: Region::Main,
+            d_lo: 1,
+            d_hi: 300,
+            z_lo,
+            z_hi: 3000,
+        };
+        assert!(Solution::new(1, 1, 3).verify(29) && Solution::new(-3, -2, 4).verify(29));
+        for (k, rect) in [
+            (29i64, small(0, 5)),
+            (29, small(2, 5)),
+            (3, main(1)),
+            (29, main(5)),
+        ] {
+            let spec = unit(k, rect, 2_000_000);
+            let ps = pieces::of_unit(&spec);
+            assert!(ps.len() > 1);
+            let outs: Vec<Outcome> = ps
+                .iter()
+                .map(|p| {
+                    compute(&CheckJob::Piece {
+                        check_id: 0,
+                        unit_id: 1,
+                        k,
+                        rect: *p,
+                    })
+                    .unwrap()
+                })
+                .collect();
+            let mut claimed: Vec<Solution> = ps
+                .iter()
+                .flat_map(|p| kernel::scan(k, p, 1, &|_| {}).unwrap().solutions)
+                .filter(|s| s.in_rect(&rect))
+                .collect();
+            claimed.sort();
+            claimed.dedup();
+            for (p, o) in ps.iter().zip(&outs) {
+                assert!(
+                    piece_confirms(&o.digest, &claimed, p, o, Solution::in_rect),
+                    "k={k} {rect}: piece {p} not confirmed"
+                );
+            }
+            let whole = compute(&CheckJob::Unit {
+                unit_id: 1,
+                k,
+                rect,
+            })
+            .unwrap();
+            assert_eq!(whole.solutions, claimed, "k={k} {rect}");
+        }
     }
 }

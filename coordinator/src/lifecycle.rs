@@ -547,7 +547,9 @@ pub fn pair_escape_probability(q: f64, r: u32, recheck_share: f64, units: u32) -
 }
 
 /// Whether the organiser's computation of one piece confirms a report's claim: the same
-/// digest, and the report's solutions inside that piece are exactly the computed ones.
+/// digest, and the report's solutions that belong to the piece (`inside`) are exactly the
+/// computed ones that do. (The kernel also meets solutions through a coordinate that is not
+/// the smallest; those belong to another piece or unit and are compared there.)
 pub fn piece_confirms(
     claimed: &Digest,
     claimed_solutions: &[Solution],
@@ -559,7 +561,11 @@ pub fn piece_confirms(
         .iter()
         .filter(|s| inside(s, piece))
         .collect();
-    let theirs: BTreeSet<&Solution> = computed.solutions.iter().collect();
+    let theirs: BTreeSet<&Solution> = computed
+        .solutions
+        .iter()
+        .filter(|s| inside(s, piece))
+        .collect();
     *claimed == computed.digest && mine == theirs
 }
 

@@ -123,7 +123,7 @@ async fn settle_all(store: &Store, now: i64) {
             for p in pieces::of_unit(spec) {
                 let out = kernel::scan(spec.k, &p, 1, &|_| {}).unwrap();
                 digests.push(out.digest);
-                solutions.extend(out.solutions);
+                solutions.extend(out.solutions.into_iter().filter(|s| s.in_rect(&spec.rect)));
             }
             solutions.sort();
             solutions.dedup();

@@ -72,6 +72,7 @@ CREATE TABLE workers (
     invite_id     INTEGER REFERENCES invites(id), -- the invitation it enrolled with, if any
     enrolled_at   INTEGER NOT NULL,
     last_seen     INTEGER NOT NULL,
+    asked_at      INTEGER NOT NULL DEFAULT 0,  -- latest request for a lease (only workers that ask recently are drawn for offers)
     draw_key      INTEGER NOT NULL,            -- random; the offer draw walks workers in this order
     active        INTEGER NOT NULL DEFAULT 0,  -- leases in state 'active'
     reports       INTEGER NOT NULL DEFAULT 0,  -- reports stored (any verdict)

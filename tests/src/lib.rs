@@ -637,7 +637,7 @@ impl HandWorker {
             owner: owner.to_string(),
             public_key: sign::public_to_hex(&w.key.verifying_key()),
             kernel: KERNEL_VERSION.to_string(),
-            threads: 1,
+            threads: 2,
             label: format!("hand-{owner}"),
             invite: None,
         };
@@ -766,7 +766,7 @@ pub fn honest(g: &LeaseGrant) -> (Vec<Digest>, Vec<Solution>) {
         let out = kernel::scan(u.k, &p, 1, &|_| {})
             .expect("the kernel scans a piece of a unit the coordinator planned");
         digests.push(out.digest);
-        sols.extend(out.solutions);
+        sols.extend(out.solutions.into_iter().filter(|s| s.in_rect(&u.rect)));
     }
     sols.sort();
     sols.dedup();

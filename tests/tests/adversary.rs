@@ -42,34 +42,38 @@ fn a_colluding_pair_is_refused_caught_quarantined_and_the_certificate_still_hold
     let mallet = HandWorker::enrol(&coord.url(), "mallet").unwrap();
     let oscar = HandWorker::enrol(&coord.url(), "oscar").unwrap();
 
-    // The pair leases back to back. With nobody else enrolled, the only worker the
-    // coordinator can draw for the second lease of mallet's unit is oscar: the pair lands on
-    // the same unit (with honest workers about, it would not choose).
-    let pair_lease = || {
-        let gm = mallet.lease(Duration::from_secs(10)).unwrap();
-        let go = oscar.lease(Duration::from_secs(10)).unwrap();
-        assert_eq!(
-            gm.unit.unit.unit_id, go.unit.unit.unit_id,
-            "the pair shares a unit"
-        );
-        (gm, go)
-    };
+    // The pair asks for work back to back, each with a thread free. With nobody else
+    // about, whoever the coordinator draws for the second lease of one's unit is the other:
+    // the pair lands on the same units (with honest workers about, it could not choose).
+    let gx = oscar.lease(Duration::from_secs(10)).unwrap();
+    let gy = mallet.lease(Duration::from_secs(10)).unwrap();
+    let gy2 = oscar.lease(Duration::from_secs(10)).unwrap();
+    assert_eq!(
+        gy.unit.unit.unit_id, gy2.unit.unit.unit_id,
+        "the pair shares a unit"
+    );
+
     // 1. One unit honestly, to look like good volunteers: it settles on their word.
-    let (gm, go) = pair_lease();
-    let honest_unit = gm.unit.unit.unit_id;
-    let (pieces, sols) = honest(&gm);
-    for (w, g) in [(&mallet, &gm), (&oscar, &go)] {
+    let honest_unit = gy.unit.unit.unit_id;
+    let (pieces, sols) = honest(&gy);
+    for (w, g) in [(&mallet, &gy), (&oscar, &gy2)] {
         let a = w
             .send(&w.prepare_report(&w.report_for(g, pieces.clone(), sols.clone())))
             .unwrap();
         assert!(a.ok(), "{a:?}");
     }
     // 2. One unit made up: honest counts, invented survivor hashes, no solutions; the same
-    //    invented digests from both, so that they agree.
-    let (gm, go) = pair_lease();
-    let (pieces, _) = honest(&gm);
+    //    invented digests from both, so that they agree. Oscar holds it; the next sweep
+    //    draws mallet (the only eligible worker) for its second lease.
+    std::thread::sleep(Duration::from_secs(3));
+    let gx2 = mallet.lease(Duration::from_secs(10)).unwrap();
+    assert_eq!(
+        gx.unit.unit.unit_id, gx2.unit.unit.unit_id,
+        "the pair shares a second unit"
+    );
+    let (pieces, _) = honest(&gx);
     let made_up = invented(&pieces, 99);
-    for (w, g) in [(&mallet, &gm), (&oscar, &go)] {
+    for (w, g) in [(&oscar, &gx), (&mallet, &gx2)] {
         let a = w
             .send(&w.prepare_report(&w.report_for(g, made_up.clone(), vec![])))
             .unwrap();

@@ -690,9 +690,13 @@ impl Worker {
 
         let results: Vec<ChunkResult> = done.into_iter().map(|c| c.expect("all present")).collect();
         let digest: Digest = results.iter().map(|c| c.digest).sum();
+        // A report lists the solutions that belong to its unit (smallest coordinate inside
+        // it, `Solution::in_rect`); the kernel also meets others through a larger coordinate,
+        // and those belong to other units.
         let mut solutions: Vec<Solution> = results
             .iter()
             .flat_map(|c| c.solutions.iter().copied())
+            .filter(|s| s.in_rect(&unit.rect))
             .collect();
         solutions.sort();
         solutions.dedup();

@@ -397,9 +397,12 @@ async fn a_unit_waiting_for_its_second_lease_is_offered_at_the_next_sweep() {
     assert_ne!(g1.unit.unit.unit_id, g2.unit.unit.unit_id);
     e.report(&a, &g2, 1, vec![]).await;
     // Nobody else was there when alice took the units: nobody was drawn for their second
-    // leases. Bob arrives; the next sweep draws him for one of them (the only eligible
-    // worker), and that offer comes before any untouched unit.
+    // leases. Bob arrives and asks: an untouched unit comes first. Now that he has asked
+    // (and has a thread free), the next sweep draws him for one of alice's units (he is the
+    // only eligible worker), and that offer comes before anything else.
     let b = e.enrol("bob").await;
+    let first = e.lease(&b).await.unwrap();
+    assert!(![g1.unit.unit.unit_id, g2.unit.unit.unit_id].contains(&first.unit.unit.unit_id));
     e.st.store.sweep(crate::now(), &e.st.policy).await.unwrap();
     let gb = e.lease(&b).await.unwrap();
     assert!(

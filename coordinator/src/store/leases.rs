@@ -129,6 +129,11 @@ impl Store {
                 return Err(quarantined(&w));
             }
             let now = call.now;
+            sqlx::query("UPDATE workers SET asked_at = $1 WHERE id = $2")
+                .bind(now)
+                .bind(w.id)
+                .execute(&mut *c)
+                .await?;
             if w.active >= policy.rules.lease_cap(w.threads) {
                 return Ok(None);
             }
@@ -605,8 +610,11 @@ pub(super) async fn draw_offer(
 ) -> Result<Option<i64>> {
     let u = load_unit(c, unit_id).await?;
     let known = i64::from(u.known.is_some());
-    let eligible = "w.quarantined = 0 AND w.kernel = $1 AND w.last_seen >= $2 \
-         AND w.active < w.threads * $3 \
+    // Eligible: asked for work lately and has a thread free (so an offer is taken up soon),
+    // of the campaign's kernel, not quarantined, past probation unless the answer is known,
+    // and of an owner (and optionally a network) that has not taken the unit.
+    let eligible = "w.quarantined = 0 AND w.kernel = $1 AND w.asked_at >= $2 \
+         AND w.active < w.threads \
          AND ($4 = 1 OR w.trusted = 1 OR w.confirmed >= $5) \
          AND (SELECT count(*) FROM units x WHERE x.offered_to = w.id) < w.threads * $3 \
          AND NOT EXISTS (SELECT 1 FROM leases l WHERE l.unit_id = $6 AND (l.worker_id = w.id OR \
