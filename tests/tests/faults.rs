@@ -156,10 +156,13 @@ fn lies_are_refused_caught_and_quarantined_and_replays_change_nothing() {
     let incidents = coord.admin_get("/api/v1/admin/incidents").unwrap();
     let list = incidents["incidents"].as_array().expect("incidents list");
     assert!(
-        list.iter().any(|i| i["kind"] == "piece_mismatch"
-            && i["quarantined"]
-                .as_array()
-                .is_some_and(|q| q.contains(&Value::from(mallory.worker_id)))),
+        // Caught by a spot check, or by the recheck of a unit it took on probation.
+        list.iter().any(
+            |i| (i["kind"] == "piece_mismatch" || i["kind"] == "unit_mismatch")
+                && i["quarantined"]
+                    .as_array()
+                    .is_some_and(|q| q.contains(&Value::from(mallory.worker_id)))
+        ),
         "{incidents}"
     );
     // (1, 1, 1) and (4, 4, −5): the solutions of k = 3 with min ≤ 300 (classical; from memory,

@@ -246,6 +246,48 @@ impl Worker {
         nap(&self.stop, d)
     }
 
+    /// The key the coordinator presents (`GET /api/v1/about`) against the pinned one, pinning
+    /// it on first contact. `Ok(false)`: asked to stop while waiting for an answer.
+    fn check_presented_key(&mut self) -> Result<bool> {
+        // Before any request in the worker's name: the key the coordinator presents. On first
+        // contact it is pinned;
+        // with a pinned key (from --coordinator-key or an earlier contact) it must match, or
+        // nothing is sent in the worker's name.
+        let about = loop {
+            match self.api.about() {
+                Ok(a) => break a,
+                Err(e) => {
+                    if !self.retry_later("asking the coordinator for its key", &e) {
+                        return Ok(false);
+                    }
+                }
+            }
+        };
+        let got = about.coordinator_key.trim().to_ascii_lowercase();
+        let key = sign::public_from_hex(&got).map_err(|_| {
+            anyhow::anyhow!(
+                "the coordinator presents {:?} as its key, which is not a public key",
+                about.coordinator_key
+            )
+        })?;
+        match &self.pinned {
+        Some(p) if *p != key => bail!(
+            "COORDINATOR KEY MISMATCH: the coordinator at {} presents key {got}, but the pinned key is {}. \
+             Refusing to work for it. Either this is not your coordinator, or its key changed: verify with its operator.",
+            self.args.coordinator,
+            sign::public_to_hex(p)
+        ),
+        Some(_) => {}
+        None => {
+            self.state.save_pinned_key(&got)?;
+            self.pinned = Some(key);
+            self.api.set_coordinator_key(&got);
+            event!("pinned coordinator key {got} (first contact; pass --coordinator-key to check it instead)");
+        }
+    }
+        Ok(true)
+    }
+
     fn retry_later(&mut self, what: &str, e: &CallError) -> bool {
         let d = self.backoff.next();
         event!("backoff: {what}: {e}; retrying in {:.1}s", d.as_secs_f64());
@@ -427,6 +469,9 @@ impl Worker {
                     self.args.coordinator
                 );
             }
+            if !self.check_presented_key()? {
+                return Ok(());
+            }
             self.api.set_worker_id(e.worker_id);
             event!(
                 "worker {} (owner {}) at {}",
@@ -437,29 +482,8 @@ impl Worker {
             return Ok(());
         }
 
-        if self.pinned.is_none() {
-            // First contact: learn the key that every signed request must name, and pin it.
-            let about = loop {
-                match self.api.about() {
-                    Ok(a) => break a,
-                    Err(e) => {
-                        if !self.retry_later("asking the coordinator for its key", &e) {
-                            return Ok(());
-                        }
-                    }
-                }
-            };
-            let got = about.coordinator_key.trim().to_ascii_lowercase();
-            let key = sign::public_from_hex(&got).map_err(|_| {
-                anyhow::anyhow!(
-                    "the coordinator presents {:?} as its key, which is not a public key",
-                    about.coordinator_key
-                )
-            })?;
-            self.state.save_pinned_key(&got)?;
-            self.pinned = Some(key);
-            self.api.set_coordinator_key(&got);
-            event!("pinned coordinator key {got} (first contact; pass --coordinator-key to check it instead)");
+        if !self.check_presented_key()? {
+            return Ok(());
         }
         let req = EnrolRequest {
             owner: self.args.owner.clone(),
