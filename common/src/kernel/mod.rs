@@ -33,6 +33,7 @@ pub mod main_region;
 #[doc(hidden)]
 pub mod naive;
 pub mod naive_se;
+pub mod segsieve;
 pub mod sieve;
 pub mod small;
 pub mod survivor;

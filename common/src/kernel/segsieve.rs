@@ -1,0 +1,724 @@
+//! The cube roots of `k` modulo every `d` of a range, by a segmented factor sieve whose memory
+//! does not grow with `√d`.
+//!
+//! The `d` axis of one piece of work `[d_lo, d_hi)` is swept in segments of [`seg_len`] values.
+//! Every prime `p ≤ √(d_hi − 1)` that divides some `d` of the piece is found by sieving, in one
+//! of three ways (as in a segmented sieve of Eratosthenes):
+//! * **small primes** `p < seg_len` (classified once per rectangle, [`SieveTable`]): per-prime
+//!   offsets of the next multiple, carried from segment to segment. *Dead* primes (`p ≡ 1
+//!   mod 3`, `p ∤ 3k`, `k` not a cube mod `p`: no `d` they divide has a root) mark their
+//!   multiples; the others append themselves to the factor slots of the multiples still alive.
+//! * **primes dividing `3k`** (at most 13): the same, with their root lists mod every `p^e`.
+//! * **large primes** `seg_len ≤ p ≤ √(d_hi − 1)`: generated per piece by a segmented sieve of
+//!   Eratosthenes (base primes up to `d^{1/4}`), and each put in the *bucket* of the segment
+//!   holding its next multiple; a segment visits only the primes of its bucket, which move on
+//!   to the bucket of their next multiple. A prime is classified (dead or not) when it first
+//!   hits a `d` still alive, and the answer travels with it.
+//!
+//! A `d` that no dead prime divides is then stripped of its listed primes; what is left is 1
+//! or one prime `q > √d` (all smaller primes were sieved). Its roots are computed first (for
+//! `q ≡ 1 mod 3` most `k` are not cubes and the `d` drops out), then the roots mod each prime
+//! power (stored for small primes, computed for large ones, Hensel-lifted for exponents > 1)
+//! are combined by CRT. Buffers live in [`SegScratch`] and are reused: no allocation per `d`.
+//!
+//! Memory: the per-segment arrays, the small-prime table, and one 8-byte bucket entry per large
+//! prime that still has a multiple ahead in the piece — at most `π(√d_hi)`, and about
+//! `π(W) + W·ln(ln √d / ln W)` for a piece of width `W < √d`: bounded by the width of the
+//! piece, not by `√d`. The classic table of every prime up to `√d` with its roots
+//! ([`super::sieve`], kept as the reference) is not needed.
+//!
+//! Produces exactly the roots of [`super::sieve::for_each_d`] (tested), in another order.
+
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
+use super::arith::{
+    cbrt_mod_prime, crt_combine, factor_u64, hensel_lift, inv_pow2_64, isqrt_u64, primes_up_to,
+    residue, roots_mod_prime_power, Mont,
+};
+
+/// Default segment length (values of `d` per sweep): the per-segment arrays (about 30 bytes
+/// per `d`) fit the L2 cache of the development machine (1 MiB per core). Measured by
+/// `cargo bench -p cubehunt-common --bench kernel` (segment sweep).
+pub const SEG_DEFAULT: usize = 1 << 15;
+/// Factor slots per `d` inside the segment arrays; further primes of the same `d` go to a
+/// per-segment overflow list (rare: 5 distinct sieved primes above the smallest ones).
+const SLOTS: usize = 5;
+/// `nf` value of a dead `d` (some dead prime divides it).
+const DEAD: u8 = u8::MAX;
+/// Slot tags: a large prime `p` is stored as `TAG_LARGE | (p − 1)/2` (odd, `< 2³²`); a
+/// special prime (`p | 3k`) as `TAG_SPECIAL | index`; a small prime as its table index.
+const TAG_LARGE: u32 = 1 << 31;
+const TAG_SPECIAL: u32 = 1 << 30;
+
+/// Segment length in use: [`SEG_DEFAULT`], or `CUBEHUNT_SEG_LOG2` (10..=20) when set, for
+/// measuring (the roots and the digest do not depend on it).
+pub fn seg_len() -> usize {
+    static S: std::sync::OnceLock<usize> = std::sync::OnceLock::new();
+    *S.get_or_init(|| {
+        std::env::var("CUBEHUNT_SEG_LOG2")
+            .ok()
+            .and_then(|v| v.parse::<u32>().ok())
+            .filter(|b| (10..=20).contains(b))
+            .map(|b| 1usize << b)
+            .unwrap_or(SEG_DEFAULT)
+    })
+}
+
+/// A small prime that is not dead and does not divide `3k`, with its roots mod `p`.
+#[derive(Clone, Debug)]
+struct Small {
+    p: u64,
+    /// `p⁻¹ mod 2⁶⁴` and `⌊(2⁶⁴−1)/p⌋` for division-free divisibility tests (odd `p`)
+    pinv: u64,
+    plim: u64,
+    n: u8,
+    roots: [u64; 3],
+}
+
+impl Small {
+    fn new(p: u64, n: u8, roots: [u64; 3]) -> Small {
+        let (pinv, plim) = if p & 1 == 1 {
+            (inv_pow2_64(p), u64::MAX / p)
+        } else {
+            (0, 0)
+        };
+        Small {
+            p,
+            pinv,
+            plim,
+            n,
+            roots,
+        }
+    }
+}
+
+/// Divide out the odd prime `p` (`pinv = p⁻¹ mod 2⁶⁴`, `plim = ⌊(2⁶⁴−1)/p⌋`) from `rem`
+/// completely; the exponent. `rem·p⁻¹ mod 2⁶⁴` is `rem/p` when `p | rem`, else above `plim`.
+#[inline]
+fn strip_odd(rem: &mut u64, pinv: u64, plim: u64) -> u32 {
+    let mut e = 0;
+    loop {
+        let q = rem.wrapping_mul(pinv);
+        if q > plim {
+            return e;
+        }
+        *rem = q;
+        e += 1;
+    }
+}
+
+#[inline]
+fn strip(rem: &mut u64, p: u64, pinv: u64, plim: u64) -> u32 {
+    if p == 2 {
+        let e = rem.trailing_zeros();
+        *rem >>= e;
+        e
+    } else {
+        strip_odd(rem, pinv, plim)
+    }
+}
+
+/// A prime dividing `3k` (and `≤ √d_max`): its root lists mod `p^e`, `e = 0, 1, …`.
+struct Special {
+    p: u64,
+    lists: Vec<Vec<u64>>,
+}
+
+/// What is shared by every piece of one rectangle: the small primes (`< seg_len()`)
+/// classified for `k`, the primes dividing `3k` with their roots, and the base primes for
+/// generating the large ones.
+pub struct SieveTable {
+    k: i64,
+    seg: usize,
+    limit: u64,
+    bad: Vec<u64>,
+    good: Vec<Small>,
+    special: Vec<Special>,
+    /// odd primes up to `√limit` (to generate the primes in `[seg, limit]`)
+    base: Vec<u64>,
+}
+
+impl SieveTable {
+    /// Classify the small primes and the divisors of `3k`, for pieces with `d < d_max`.
+    pub fn new(k: i64, d_max: u64) -> SieveTable {
+        Self::with_seg(k, d_max, seg_len())
+    }
+
+    /// [`SieveTable::new`] with segment length `seg` (a power of two in `[2¹⁰, 2²⁰]`).
+    pub fn with_seg(k: i64, d_max: u64, seg: usize) -> SieveTable {
+        assert!(seg.is_power_of_two() && (1 << 10..=1 << 20).contains(&seg));
+        let limit = isqrt_u64(d_max.saturating_sub(1)).max(1);
+        let mut bad = Vec::new();
+        let mut good = Vec::new();
+        let mut special = Vec::new();
+        // primes dividing 3k (any size up to the limit)
+        let mut pk: Vec<u64> = factor_u64(k.unsigned_abs().max(1))
+            .into_iter()
+            .map(|(p, _)| p)
+            .chain([3])
+            .collect();
+        pk.sort_unstable();
+        pk.dedup();
+        for &p in pk.iter().filter(|&&p| p <= limit) {
+            let mut lists = vec![vec![0u64]];
+            let mut pe = 1u64;
+            let mut e = 0;
+            while let Some(next) = pe.checked_mul(p) {
+                if next > d_max {
+                    break;
+                }
+                pe = next;
+                e += 1;
+                lists.push(roots_mod_prime_power(k, p, e));
+            }
+            special.push(Special { p, lists });
+        }
+        for p in primes_up_to(limit.min(seg as u64 - 1)) {
+            if pk.contains(&p) {
+                continue;
+            }
+            let (r, n) = cbrt_mod_prime(residue(k, p), p);
+            if n == 0 {
+                bad.push(p);
+            } else {
+                good.push(Small::new(p, n as u8, r));
+            }
+        }
+        let base = if limit >= seg as u64 {
+            primes_up_to(isqrt_u64(limit))
+                .into_iter()
+                .filter(|&p| p > 2)
+                .collect()
+        } else {
+            Vec::new()
+        };
+        SieveTable {
+            k,
+            seg,
+            limit,
+            bad,
+            good,
+            special,
+            base,
+        }
+    }
+
+    /// The largest `d` (exclusive) this table serves: every prime `≤ √(d − 1)` is sieved.
+    pub fn covers(&self, d_hi: u64) -> bool {
+        d_hi <= 1 || isqrt_u64(d_hi - 1) <= self.limit
+    }
+
+    /// Whether sieving is cheaper than factoring each `d` of `[d_lo, d_hi)` on its own
+    /// (Pollard–Brent, tens of µs per `d`): generating the primes up to `√d_hi` costs a few
+    /// ns per prime, per piece.
+    pub fn worth_sieving(d_lo: u64, d_hi: u64) -> bool {
+        let limit = isqrt_u64(d_hi.saturating_sub(1));
+        limit <= 1 << 16 || limit / 1024 <= d_hi - d_lo
+    }
+
+    /// The prime limit `⌊√(d_max − 1)⌋`.
+    pub fn limit(&self) -> u64 {
+        self.limit
+    }
+}
+
+/// Reusable buffers of one thread.
+#[derive(Default)]
+pub struct SegScratch {
+    nf: Vec<u8>,
+    fac: Vec<u32>,
+    extra: Vec<(u32, u32)>,
+    buckets: Vec<Vec<u64>>,
+    spare: Vec<Vec<u64>>,
+    next_bad: Vec<u64>,
+    next_good: Vec<u64>,
+    next_special: Vec<u64>,
+    roots: Vec<u64>,
+    tmp: Vec<u64>,
+    part: Vec<u64>,
+    gen: Vec<u8>,
+    gen_next: Vec<u64>,
+}
+
+/// Is `k` a cube mod the prime `p ≡ 1 (mod 3)`, `p ∤ k`? Euler: `a^((p−1)/3) ≡ 1`.
+fn is_cube_mod(k: i64, p: u64) -> bool {
+    let mt = Mont::new(p);
+    let a = mt.to(residue(k, p));
+    mt.pow(a, (p - 1) / 3) == mt.to(1)
+}
+
+/// Call `f` for every prime in `[lo, hi]` (odd `lo ≥ 3`), in increasing order, by a segmented
+/// sieve of Eratosthenes over odd numbers with the odd `base` primes (`base` must cover `√hi`).
+fn for_each_prime(
+    lo: u64,
+    hi: u64,
+    base: &[u64],
+    buf: &mut Vec<u8>,
+    next: &mut Vec<u64>,
+    mut f: impl FnMut(u64),
+) {
+    const CHUNK: usize = 1 << 16; // odd numbers per chunk
+    if hi < lo {
+        return;
+    }
+    let lo = lo | 1;
+    // index i ↔ lo + 2i; next[j] = index of the next odd multiple of base[j] (≥ p²)
+    next.clear();
+    for &p in base {
+        let start = (p * p).max(lo.div_ceil(p) * p);
+        let start = if start % 2 == 0 { start + p } else { start };
+        next.push((start - lo) / 2);
+    }
+    buf.resize(CHUNK, 0);
+    let total = (hi - lo) / 2 + 1;
+    let mut c0 = 0u64;
+    while c0 < total {
+        let len = ((total - c0) as usize).min(CHUNK);
+        buf[..len].fill(1);
+        for (j, &p) in base.iter().enumerate() {
+            if p * p > lo + 2 * (c0 + len as u64 - 1) {
+                break;
+            }
+            let mut i = next[j];
+            if i >= c0 + len as u64 {
+                continue;
+            }
+            let mut r = (i - c0) as usize;
+            while r < len {
+                buf[r] = 0;
+                r += p as usize;
+            }
+            i = c0 + r as u64;
+            next[j] = i;
+        }
+        for (r, &b) in buf[..len].iter().enumerate() {
+            if b != 0 {
+                f(lo + 2 * (c0 + r as u64));
+            }
+        }
+        c0 += len as u64;
+    }
+}
+
+/// Emptied bucket vectors kept for reuse.
+const POOL: usize = 16;
+
+#[inline]
+fn bucket_push(buckets: &mut [Vec<u64>], spare: &mut Vec<Vec<u64>>, slot: usize, e: u64) {
+    let b = &mut buckets[slot];
+    if b.capacity() == 0 {
+        if let Some(v) = spare.pop() {
+            *b = v;
+        }
+    }
+    b.push(e);
+}
+
+#[inline]
+fn push_slot(nf: &mut [u8], fac: &mut [u32], extra: &mut Vec<(u32, u32)>, j: usize, v: u32) {
+    let n = nf[j] as usize;
+    if n < SLOTS {
+        fac[j * SLOTS + n] = v;
+    } else {
+        extra.push((j as u32, v));
+    }
+    nf[j] = n as u8 + 1;
+}
+
+/// `a⁻¹ mod m` for `gcd(a, m) = 1`, `m < 2³²` (Euclid on 32-bit words).
+#[inline]
+fn inv_mod_u32(a: u32, m: u32) -> u32 {
+    let (mut r0, mut r1) = (m, a % m);
+    let (mut s0, mut s1) = (0i64, 1i64);
+    while r1 != 0 {
+        let q = r0 / r1;
+        (r0, r1) = (r1, r0 - q * r1);
+        (s0, s1) = (s1, s0 - q as i64 * s1);
+    }
+    debug_assert_eq!(r0, 1, "coprime moduli");
+    s0.rem_euclid(m as i64) as u32
+}
+
+/// Fold the roots modulo `pe` (`part`) into `roots` (mod `m`) by CRT.
+#[inline]
+fn fold(roots: &mut Vec<u64>, tmp: &mut Vec<u64>, m: &mut u64, part: &[u64], pe: u64) {
+    if *m == 1 {
+        roots.clear();
+        roots.extend_from_slice(part);
+    } else if pe < 1 << 32 {
+        // x = a + m·((b − a)·m⁻¹ mod pe): all in 64-bit words
+        let inv = inv_mod_u32((*m % pe) as u32, pe as u32) as u64;
+        tmp.clear();
+        for &a in roots.iter() {
+            let am = a % pe;
+            for &b in part {
+                let diff = if b >= am { b - am } else { b + pe - am };
+                tmp.push(a + *m * (diff * inv % pe));
+            }
+        }
+        std::mem::swap(roots, tmp);
+    } else {
+        crt_combine(roots, *m, part, pe, tmp);
+        std::mem::swap(roots, tmp);
+    }
+    *m *= pe;
+}
+
+/// Roots mod `p^e` from the roots mod `p` (`p ∤ 3k`, simple roots: Hensel).
+#[inline]
+fn lift_into(k: i64, p: u64, e: u32, r: &[u64], part: &mut Vec<u64>) -> u64 {
+    part.clear();
+    let pe = p.pow(e);
+    if e == 1 {
+        part.extend_from_slice(r);
+    } else {
+        let a = residue(k, pe);
+        for &x in r {
+            part.push(hensel_lift(a, x, pe));
+        }
+    }
+    pe
+}
+
+/// Call `f(d, roots)` for every `d ∈ [d_lo, d_hi)` in increasing order, with the cube roots
+/// of `k` mod `d` (unsorted; possibly empty). `table` must cover `d_hi` ([`SieveTable::covers`]).
+pub fn for_each_d(
+    table: &SieveTable,
+    d_lo: u64,
+    d_hi: u64,
+    sc: &mut SegScratch,
+    mut f: impl FnMut(u64, &[u64]),
+) {
+    let t = table;
+    let k = t.k;
+    assert!(t.covers(d_hi), "sieve table does not cover d < {d_hi}");
+    if d_lo >= d_hi {
+        return;
+    }
+    let seg = t.seg;
+    let width = d_hi - d_lo;
+    let nseg = width.div_ceil(seg as u64) as usize;
+    sc.nf.resize(seg, 0);
+    sc.fac.resize(seg * SLOTS, 0);
+    // small primes and specials: offset of the next multiple from the segment start
+    sc.next_bad.clear();
+    sc.next_bad
+        .extend(t.bad.iter().map(|&p| (p - d_lo % p) % p));
+    sc.next_good.clear();
+    sc.next_good
+        .extend(t.good.iter().map(|g| (g.p - d_lo % g.p) % g.p));
+    sc.next_special.clear();
+    sc.next_special
+        .extend(t.special.iter().map(|s| (s.p - d_lo % s.p) % s.p));
+    // large primes into the bucket of their first multiple (offsets from d_lo)
+    for mut b in sc.buckets.drain(..) {
+        if b.capacity() > 0 && sc.spare.len() < POOL {
+            b.clear();
+            sc.spare.push(b);
+        }
+    }
+    sc.buckets.resize_with(nseg, Vec::new);
+    let seg_bits = seg.trailing_zeros();
+    if t.limit > seg as u64 {
+        let (buckets, spare) = (&mut sc.buckets, &mut sc.spare);
+        let sp = &t.special;
+        for_each_prime(
+            seg as u64 + 1,
+            t.limit,
+            &t.base,
+            &mut sc.gen,
+            &mut sc.gen_next,
+            |p| {
+                let off = (p - d_lo % p) % p;
+                if off < width && !sp.iter().any(|s| s.p == p) {
+                    // state bits 62..63: 0 unknown, 1 alive, 2 dead; p ≡ 2 mod 3 is alive
+                    let state = if p % 3 == 2 { 1u64 } else { 0 };
+                    let within = off & (seg as u64 - 1);
+                    bucket_push(
+                        buckets,
+                        spare,
+                        (off >> seg_bits) as usize,
+                        p | (within << 32) | (state << 62),
+                    );
+                }
+            },
+        );
+    }
+    for s in 0..nseg {
+        let a = d_lo + (s * seg) as u64;
+        let len = ((d_hi - a) as usize).min(seg);
+        let nf = &mut sc.nf[..len];
+        let fac = &mut sc.fac[..];
+        nf.fill(0);
+        sc.extra.clear();
+        for (&p, nx) in t.bad.iter().zip(sc.next_bad.iter_mut()) {
+            let mut j = *nx as usize;
+            while j < len {
+                nf[j] = DEAD;
+                j += p as usize;
+            }
+            *nx = (j - len) as u64;
+        }
+        for (si, (sp, nx)) in t.special.iter().zip(sc.next_special.iter_mut()).enumerate() {
+            let mut j = *nx;
+            while j < len as u64 {
+                let jj = j as usize;
+                if nf[jj] != DEAD {
+                    push_slot(nf, fac, &mut sc.extra, jj, TAG_SPECIAL | si as u32);
+                }
+                j += sp.p;
+            }
+            *nx = j - len as u64;
+        }
+        for (gi, (g, nx)) in t.good.iter().zip(sc.next_good.iter_mut()).enumerate() {
+            let p = g.p as usize;
+            let mut j = *nx as usize;
+            while j < len {
+                if nf[j] != DEAD {
+                    push_slot(nf, fac, &mut sc.extra, j, gi as u32);
+                }
+                j += p;
+            }
+            *nx = (j - len) as u64;
+        }
+        // this segment's bucket: each large prime hits one d here, then moves on
+        let mut bucket = std::mem::take(&mut sc.buckets[s]);
+        for &e in bucket.iter() {
+            let p = e & 0xffff_ffff;
+            let j = ((e >> 32) & 0x3fff_ffff) as usize;
+            let mut state = e >> 62;
+            if nf[j] != DEAD {
+                if state == 0 {
+                    state = if is_cube_mod(k, p) { 1 } else { 2 };
+                }
+                if state == 2 {
+                    nf[j] = DEAD;
+                } else {
+                    push_slot(nf, fac, &mut sc.extra, j, TAG_LARGE | (p >> 1) as u32);
+                }
+            }
+            let next = (s * seg + j) as u64 + p;
+            if next < width {
+                let within = next & (seg as u64 - 1);
+                bucket_push(
+                    &mut sc.buckets,
+                    &mut sc.spare,
+                    (next >> seg_bits) as usize,
+                    p | (within << 32) | (state << 62),
+                );
+            }
+        }
+        if bucket.capacity() > 0 && sc.spare.len() < POOL {
+            bucket.clear();
+            sc.spare.push(bucket);
+        }
+        // assemble the roots of every d still alive
+        for j in 0..len {
+            let d = a + j as u64;
+            let n = sc.nf[j];
+            if n == DEAD {
+                f(d, &[]);
+                continue;
+            }
+            let mut rem = d;
+            // pass 1: strip every listed prime, so that the large cofactor is known
+            let cnt = n as usize;
+            let entry = |c: usize, sc: &SegScratch| -> u32 {
+                if c < SLOTS {
+                    sc.fac[j * SLOTS + c]
+                } else {
+                    let mut seen = SLOTS;
+                    for &(jj, v) in &sc.extra {
+                        if jj as usize == j {
+                            if seen == c {
+                                return v;
+                            }
+                            seen += 1;
+                        }
+                    }
+                    unreachable!("overflow slot recorded")
+                }
+            };
+            let mut exps = [0u8; 16];
+            for (c, ex) in exps.iter_mut().enumerate().take(cnt) {
+                let v = entry(c, sc);
+                *ex = if v & TAG_LARGE != 0 {
+                    let p = ((v & !TAG_LARGE) as u64) << 1 | 1;
+                    strip_odd(&mut rem, inv_pow2_64(p), u64::MAX / p) as u8
+                } else if v & TAG_SPECIAL != 0 {
+                    let p = t.special[(v & !TAG_SPECIAL) as usize].p;
+                    let mut e = 0;
+                    while rem % p == 0 {
+                        rem /= p;
+                        e += 1;
+                    }
+                    e
+                } else {
+                    let g = &t.good[v as usize];
+                    strip(&mut rem, g.p, g.pinv, g.plim) as u8
+                };
+            }
+            sc.roots.clear();
+            let mut m = 1u64;
+            if rem > 1 {
+                // one prime q > √d: its roots first (most q ≡ 1 mod 3 leave none)
+                sc.part.clear();
+                if rem == 3 || k % rem as i64 == 0 {
+                    sc.part.extend(roots_mod_prime_power(k, rem, 1));
+                } else {
+                    let (r, nr) = cbrt_mod_prime(residue(k, rem), rem);
+                    sc.part.extend_from_slice(&r[..nr]);
+                }
+                if sc.part.is_empty() {
+                    f(d, &[]);
+                    continue;
+                }
+                fold(&mut sc.roots, &mut sc.tmp, &mut m, &sc.part, rem);
+            }
+            let mut empty = false;
+            for (c, &e) in exps.iter().enumerate().take(cnt) {
+                let v = entry(c, sc);
+                let e = e as u32;
+                if v & TAG_LARGE != 0 {
+                    let p = ((v & !TAG_LARGE) as u64) << 1 | 1;
+                    let (r, nr) = cbrt_mod_prime(residue(k, p), p);
+                    debug_assert!(nr > 0);
+                    let mut part = std::mem::take(&mut sc.part);
+                    let pe = lift_into(k, p, e, &r[..nr], &mut part);
+                    fold(&mut sc.roots, &mut sc.tmp, &mut m, &part, pe);
+                    sc.part = part;
+                } else if v & TAG_SPECIAL != 0 {
+                    let spc = &t.special[(v & !TAG_SPECIAL) as usize];
+                    let pe = spc.p.pow(e);
+                    fold(
+                        &mut sc.roots,
+                        &mut sc.tmp,
+                        &mut m,
+                        &spc.lists[e as usize],
+                        pe,
+                    );
+                } else {
+                    let g = &t.good[v as usize];
+                    let mut part = std::mem::take(&mut sc.part);
+                    let pe = lift_into(k, g.p, e, &g.roots[..g.n as usize], &mut part);
+                    fold(&mut sc.roots, &mut sc.tmp, &mut m, &part, pe);
+                    sc.part = part;
+                }
+                if sc.roots.is_empty() {
+                    empty = true;
+                    break;
+                }
+            }
+            if empty {
+                f(d, &[]);
+                continue;
+            }
+            if m == 1 {
+                // d = 1: the single root 0
+                sc.roots.push(0);
+            }
+            debug_assert_eq!(m, d);
+            f(d, &sc.roots);
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::kernel::arith::cube_roots_mod;
+    use crate::kernel::sieve;
+
+    fn collect_new(k: i64, lo: u64, hi: u64) -> Vec<(u64, Vec<u64>)> {
+        let t = SieveTable::new(k, hi);
+        let mut sc = SegScratch::default();
+        let mut got = Vec::new();
+        for_each_d(&t, lo, hi, &mut sc, |d, r| {
+            let mut r = r.to_vec();
+            r.sort_unstable();
+            got.push((d, r));
+        });
+        got
+    }
+
+    #[test]
+    fn primes_of_the_generator() {
+        // source: arith::primes_up_to (a plain sieve of Eratosthenes)
+        let all = primes_up_to(200_000);
+        let base: Vec<u64> = primes_up_to(isqrt_u64(200_000))
+            .into_iter()
+            .filter(|&p| p > 2)
+            .collect();
+        for (lo, hi) in [(3u64, 200_000u64), (1001, 150_001), (65_537, 131_071)] {
+            let mut got = Vec::new();
+            let (mut b, mut n) = (Vec::new(), Vec::new());
+            for_each_prime(lo, hi, &base, &mut b, &mut n, |p| got.push(p));
+            let want: Vec<u64> = all
+                .iter()
+                .copied()
+                .filter(|&p| p >= lo && p <= hi && p > 2)
+                .collect();
+            assert_eq!(got, want, "[{lo}, {hi}]");
+        }
+    }
+
+    #[test]
+    fn agrees_with_the_reference_sieve_and_direct_roots() {
+        // source: arith::cube_roots_mod (checked against brute force in arith) and the
+        // classic table sieve of kernel::sieve
+        for &k in &[
+            1i64,
+            2,
+            3,
+            33,
+            42,
+            -42,
+            114,
+            2 * 27 * 8,
+            3 * 3 * 5 * 5 * 7,
+            1 << 20,
+            999_999_937,
+        ] {
+            for &(lo, hi) in &[
+                (1u64, 3000u64),
+                (1_000_000, 1_070_000),
+                (999_999_000_000, 999_999_070_000),
+            ] {
+                let got = collect_new(k, lo, hi);
+                assert_eq!(got.len() as u64, hi - lo);
+                let table = sieve::PrimeTable::new(k, hi);
+                let mut sc = sieve::RootScratch::default();
+                let mut want = Vec::new();
+                sieve::for_each_d(k, lo, hi, Some(&table), &mut sc, |d, r| {
+                    let mut r = r.to_vec();
+                    r.sort_unstable();
+                    want.push((d, r));
+                });
+                assert_eq!(got, want, "k={k} [{lo}, {hi})");
+                for (d, r) in got.iter().step_by(101) {
+                    assert_eq!(r, &cube_roots_mod(k, *d), "k={k} d={d}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn large_d_agrees_with_direct_roots() {
+        // d near 2⁴⁰, 2⁵⁰ and 2⁵⁶ (every prime up to √d sieved, buckets with few hits per
+        // prime); source: arith::cube_roots_mod (Pollard–Brent factoring, brute-force checked)
+        for &(k, lo, w) in &[
+            (33i64, (1u64 << 40) - 20_000, 40_000u64),
+            (114, (1u64 << 50) + 12_345, 5_000),
+            (2, (1u64 << 56) - 3_000, 3_000),
+        ] {
+            if lo > 1 << 52 && cfg!(debug_assertions) {
+                continue; // primes up to 2²⁸: release builds only
+            }
+            let got = collect_new(k, lo, lo + w);
+            let step = if lo > 1 << 55 { 7 } else { 3 };
+            for (d, r) in got.iter().step_by(step) {
+                assert_eq!(r, &cube_roots_mod(k, *d), "k={k} d={d}");
+            }
+        }
+    }
+}
