@@ -127,6 +127,19 @@ fn want(section: &str) -> bool {
 }
 
 fn main() {
+    if let Ok(spec) = std::env::var("CUBEHUNT_PROFILE") {
+        // one case for a profiler: "fast|reference,k,d,w,z_hi" (not part of the default run)
+        let v: Vec<&str> = spec.split(',').collect();
+        let path = if v[0] == "fast" {
+            Path::Fast
+        } else {
+            Path::Reference
+        };
+        let n = |i: usize| v[i].parse::<u64>().expect("number");
+        let (ns, c, _) = per_d(n(1) as i64, path, n(2), n(3), n(4));
+        println!("{spec}: {ns:.1} ns/d, {c} classes");
+        return;
+    }
     if want("paths") {
         paths();
     }

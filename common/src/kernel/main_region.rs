@@ -345,7 +345,8 @@ pub fn exact_test(k: i64, d: u64, z: i64, words: bool) -> Option<Solution> {
 /// One class `u = u₀ + d·t`, `t ∈ [0, n)`.
 #[allow(clippy::too_many_arguments)]
 fn scan_class(ctx: &Ctx, acc: &mut Acc, d: u64, dd: &DivD, s: i64, res: u64, u0: u64, n: u64) {
-    let g0 = if ctx.reference {
+    // in words (|z| ≤ 2⁴¹) the definition is cheapest; beyond, the expansion avoids GMP
+    let g0 = if ctx.reference || ctx.words {
         g0_residues_ref(ctx, d, dd, s, u0)
     } else {
         g0_residues(ctx.k, d, dd, s, res, u0)
@@ -510,8 +511,11 @@ impl Patterns {
 
 /// All classes of one `d` within `(z_lo', z_hi']` (the piece being scanned).
 fn scan_d(ctx: &Ctx, acc: &mut Acc, d: u64, roots: &[u64], count_only: bool) {
+    if roots.is_empty() {
+        return;
+    }
     let l = region_floor(ctx.z0, d);
-    if l >= ctx.z_hi || roots.is_empty() {
+    if l >= ctx.z_hi {
         return;
     }
     let lo = l.max(ctx.z_lo);
@@ -564,9 +568,15 @@ fn approx_len(z0: u64, d: u64, z_lo: u64, z_hi: u64) -> f64 {
     ((z_hi as f64 - l).max(0.0) / d as f64) * 2.0
 }
 
-/// Split the rectangle into jobs of roughly `target` candidate-equivalents each, and at most
-/// `max_n` values of `d` each.
-fn plan_jobs(z0: u64, rect: &Rect, d_end: u64, target: f64, max_n: u64) -> Vec<Job> {
+/// Split the rectangle into jobs of roughly `target` candidate-equivalents each, and at least
+/// `min_n` (when there are that many), at most `max_n` values of `d` each.
+fn plan_jobs(
+    z0: u64,
+    rect: &Rect,
+    d_end: u64,
+    target: f64,
+    (min_n, max_n): (u64, u64),
+) -> Vec<Job> {
     const PER_D: f64 = 60.0; // per-d overhead in candidate-equivalents
     let mut jobs = Vec::new();
     let mut d = rect.d_lo;
@@ -591,7 +601,13 @@ fn plan_jobs(z0: u64, rect: &Rect, d_end: u64, target: f64, max_n: u64) -> Vec<J
             }
             d += 1;
         } else {
-            let n = ((target / per_d) as u64).clamp(1, max_n).min(d_end - d);
+            // few candidates per d: the per-d work dominates, and long jobs amortise the
+            // factor sieve's set-up
+            let floor = if per_d <= 4.0 * PER_D { min_n } else { 1 };
+            let n = ((target / per_d) as u64)
+                .max(floor)
+                .clamp(1, max_n)
+                .min(d_end - d);
             jobs.push(Job {
                 d_lo: d,
                 d_hi: d + n,
@@ -685,22 +701,22 @@ fn run(
         threads
     }
     .max(1) as u64;
-    let (fac, max_n) = match path {
+    let (fac, job_n) = match path {
         Path::Fast if SieveTable::worth_sieving(rect.d_lo, d_end) => {
             let t = SieveTable::new(k, d_end);
             // each job generates the primes up to √d: make jobs long enough to amortise that
             // (a few ns per prime against tens of ns per d), but keep one per thread
             let span = d_end - rect.d_lo;
             let n = (8 * t.limit()).min(span.div_ceil(nthreads)).max(1 << 20);
-            (Factorer::Seg(t), n)
+            (Factorer::Seg(t), (n, n))
         }
         Path::Reference if PrimeTable::worth_sieving(rect.d_lo, d_end) => {
-            (Factorer::Table(PrimeTable::new(k, d_end)), 1 << 20)
+            (Factorer::Table(PrimeTable::new(k, d_end)), (1, 1 << 20))
         }
-        _ => (Factorer::PerD, 1 << 20),
+        _ => (Factorer::PerD, (1, 1 << 20)),
     };
     let target = if count_only { 1e7 } else { 1e8 };
-    let jobs = plan_jobs(z0, rect, d_end, target, max_n);
+    let jobs = plan_jobs(z0, rect, d_end, target, job_n);
     let work = || {
         let accs: Vec<Acc> = jobs
             .par_iter()
