@@ -211,9 +211,41 @@ impl DivD {
 /// and `|w₀| < d² + |k| < 2¹²⁷` is found exactly from the low `128 + v` bits of
 /// `res³ − s·k` (`d = 2^v·d'`): shift out `2^v`, multiply by `d'⁻¹ mod 2¹²⁸`. The rest is
 /// arithmetic mod `M < 2²⁹`. Agrees with [`g0_residues_ref`] (tested).
+///
+/// When `g < 2¹²⁸` (so whenever `4u₀³ < 2¹²⁸·d`, e.g. the large-`d` classes up to `d ≈ 2⁶⁰`),
+/// `g` itself comes from the low bits of `4(u₀³ − s·k) − d³` in the same way, which is cheaper.
 #[inline]
 fn g0_residues(k: i64, d: u64, dd: &DivD, s: i64, res: u64, u0: u64) -> [u64; 3] {
     debug_assert!(res < d.max(1) && u0 >= res && (u0 - res) % d == 0);
+    {
+        // N = 4(u₀³ − s·k) − d³ in 256 bits (u₀, d < 2⁶³)
+        let (ch, cl) = cube_wide(u0 as u128);
+        let (mut h, mut l) = ((ch << 2) | (cl >> 126), cl << 2);
+        let sk4 = 4 * s as i128 * k as i128;
+        if sk4 >= 0 {
+            let (x, b) = l.overflowing_sub(sk4 as u128);
+            l = x;
+            h = h.wrapping_sub(b as u128);
+        } else {
+            let (x, c) = l.overflowing_add(sk4.unsigned_abs());
+            l = x;
+            h = h.wrapping_add(c as u128);
+        }
+        let (dh, dl) = cube_wide(d as u128);
+        let (x, b) = l.overflowing_sub(dl);
+        l = x;
+        h = h.wrapping_sub(dh).wrapping_sub(b as u128);
+        // 0 ≤ N < d·2¹²⁸ ⟺ ⌊N/2¹²⁸⌋ < d: then g = N/d < 2¹²⁸ is exact mod 2¹²⁸
+        if h < d as u128 {
+            let shifted = if dd.v == 0 {
+                l
+            } else {
+                (l >> dd.v) | (h << (128 - dd.v))
+            };
+            let g = shifted.wrapping_mul(dd.inv);
+            return [mod_u128::<M1>(g), mod_u128::<M2>(g), mod_u128::<M3>(g)];
+        }
+    }
     let (hi, lo) = cube_wide(res as u128);
     let sk = s as i128 * k as i128;
     let (lo2, hi2) = if sk >= 0 {
@@ -1083,7 +1115,9 @@ mod tests {
             let s: i64 = if neg { -1 } else { 1 };
             let r = roots[pick % roots.len()];
             let res = if s == 1 { r } else { (d - r) % d };
-            let q = qsel % ((i64::MAX as u64 - res) / d + 1);
+            // small q: g < 2¹²⁸ for most d (the short path); any q: the expansion
+            let qmax = (i64::MAX as u64 - res) / d + 1;
+            let q = if qsel & 1 == 0 { (qsel >> 1) % qmax.min(8) } else { qsel % qmax };
             let u0 = res + d * q;
             let got = g0_residues(k, d, &DivD::new(d), s, res, u0);
             let g = g_big(k, d, s, u0);

@@ -238,6 +238,9 @@ pub struct SegScratch {
     part: Vec<u64>,
     gen: Vec<u8>,
     gen_next: Vec<u64>,
+    qn: Vec<u8>,
+    qr: Vec<[u64; 3]>,
+    work: Vec<(u32, u64)>,
 }
 
 /// Is `k` a cube mod the prime `p ≡ 1 (mod 3)`, `p ∤ k`? Euler: `a^((p−1)/3) ≡ 1`.
@@ -512,75 +515,79 @@ pub fn for_each_d(
             bucket.clear();
             sc.spare.push(bucket);
         }
-        // assemble the roots of every d still alive
+        // the factor list of the j-th d of the segment, slot c
+        let entry = |j: usize, c: usize, sc: &SegScratch| -> u32 {
+            if c < SLOTS {
+                sc.fac[j * SLOTS + c]
+            } else {
+                let mut seen = SLOTS;
+                for &(jj, v) in &sc.extra {
+                    if jj as usize == j {
+                        if seen == c {
+                            return v;
+                        }
+                        seen += 1;
+                    }
+                }
+                unreachable!("overflow slot recorded")
+            }
+        };
+        // strip the c-th listed prime of d_j from rem; its prime and exponent
+        let strip_entry = |v: u32, rem: &mut u64| -> (u64, u32) {
+            if v & TAG_LARGE != 0 {
+                let p = ((v & !TAG_LARGE) as u64) << 1 | 1;
+                (p, strip_odd(rem, inv_pow2_64(p), u64::MAX / p))
+            } else if v & TAG_SPECIAL != 0 {
+                let p = t.special[(v & !TAG_SPECIAL) as usize].p;
+                let mut e = 0;
+                while *rem % p == 0 {
+                    *rem /= p;
+                    e += 1;
+                }
+                (p, e)
+            } else {
+                let g = &t.good[v as usize];
+                (g.p, strip(rem, g.p, g.pinv, g.plim))
+            }
+        };
+        // pass 1: the large cofactor q (1 or a prime > √d) of every d still alive
+        sc.qn.resize(seg, 0);
+        sc.qr.resize(seg, [0; 3]);
+        sc.work.clear();
+        for j in 0..len {
+            let n = sc.nf[j];
+            if n == DEAD {
+                continue;
+            }
+            let mut rem = a + j as u64;
+            for c in 0..n as usize {
+                strip_entry(entry(j, c, sc), &mut rem);
+            }
+            if rem > 1 {
+                sc.work.push((j as u32, rem));
+            } else {
+                sc.qn[j] = 1;
+                sc.qr[j] = [0; 3]; // the root 0 mod 1
+            }
+        }
+        // pass 2: roots mod every q, many at a time (most q ≡ 1 mod 3 leave none)
+        cofactor_roots(k, &sc.work, &mut sc.qn, &mut sc.qr);
+        // pass 3: roots mod every prime power, combined by CRT
         for j in 0..len {
             let d = a + j as u64;
             let n = sc.nf[j];
-            if n == DEAD {
+            if n == DEAD || sc.qn[j] == 0 {
                 f(d, &[]);
                 continue;
             }
             let mut rem = d;
-            // pass 1: strip every listed prime, so that the large cofactor is known
-            let cnt = n as usize;
-            let entry = |c: usize, sc: &SegScratch| -> u32 {
-                if c < SLOTS {
-                    sc.fac[j * SLOTS + c]
-                } else {
-                    let mut seen = SLOTS;
-                    for &(jj, v) in &sc.extra {
-                        if jj as usize == j {
-                            if seen == c {
-                                return v;
-                            }
-                            seen += 1;
-                        }
-                    }
-                    unreachable!("overflow slot recorded")
-                }
-            };
-            let mut exps = [0u8; 16];
-            for (c, ex) in exps.iter_mut().enumerate().take(cnt) {
-                let v = entry(c, sc);
-                *ex = if v & TAG_LARGE != 0 {
-                    let p = ((v & !TAG_LARGE) as u64) << 1 | 1;
-                    strip_odd(&mut rem, inv_pow2_64(p), u64::MAX / p) as u8
-                } else if v & TAG_SPECIAL != 0 {
-                    let p = t.special[(v & !TAG_SPECIAL) as usize].p;
-                    let mut e = 0;
-                    while rem % p == 0 {
-                        rem /= p;
-                        e += 1;
-                    }
-                    e
-                } else {
-                    let g = &t.good[v as usize];
-                    strip(&mut rem, g.p, g.pinv, g.plim) as u8
-                };
-            }
             sc.roots.clear();
             let mut m = 1u64;
-            if rem > 1 {
-                // one prime q > √d: its roots first (most q ≡ 1 mod 3 leave none)
-                sc.part.clear();
-                if rem == 3 || k % rem as i64 == 0 {
-                    sc.part.extend(roots_mod_prime_power(k, rem, 1));
-                } else {
-                    let (r, nr) = cbrt_mod_prime(residue(k, rem), rem);
-                    sc.part.extend_from_slice(&r[..nr]);
-                }
-                if sc.part.is_empty() {
-                    f(d, &[]);
-                    continue;
-                }
-                fold(&mut sc.roots, &mut sc.tmp, &mut m, &sc.part, rem);
-            }
             let mut empty = false;
-            for (c, &e) in exps.iter().enumerate().take(cnt) {
-                let v = entry(c, sc);
-                let e = e as u32;
+            for c in 0..n as usize {
+                let v = entry(j, c, sc);
+                let (p, e) = strip_entry(v, &mut rem);
                 if v & TAG_LARGE != 0 {
-                    let p = ((v & !TAG_LARGE) as u64) << 1 | 1;
                     let (r, nr) = cbrt_mod_prime(residue(k, p), p);
                     debug_assert!(nr > 0);
                     let mut part = std::mem::take(&mut sc.part);
@@ -589,7 +596,7 @@ pub fn for_each_d(
                     sc.part = part;
                 } else if v & TAG_SPECIAL != 0 {
                     let spc = &t.special[(v & !TAG_SPECIAL) as usize];
-                    let pe = spc.p.pow(e);
+                    let pe = p.pow(e);
                     fold(
                         &mut sc.roots,
                         &mut sc.tmp,
@@ -600,7 +607,7 @@ pub fn for_each_d(
                 } else {
                     let g = &t.good[v as usize];
                     let mut part = std::mem::take(&mut sc.part);
-                    let pe = lift_into(k, g.p, e, &g.roots[..g.n as usize], &mut part);
+                    let pe = lift_into(k, p, e, &g.roots[..g.n as usize], &mut part);
                     fold(&mut sc.roots, &mut sc.tmp, &mut m, &part, pe);
                     sc.part = part;
                 }
@@ -613,6 +620,16 @@ pub fn for_each_d(
                 f(d, &[]);
                 continue;
             }
+            if rem > 1 {
+                let qr = sc.qr[j];
+                fold(
+                    &mut sc.roots,
+                    &mut sc.tmp,
+                    &mut m,
+                    &qr[..sc.qn[j] as usize],
+                    rem,
+                );
+            }
             if m == 1 {
                 // d = 1: the single root 0
                 sc.roots.push(0);
@@ -621,6 +638,166 @@ pub fn for_each_d(
             f(d, &sc.roots);
         }
     }
+}
+
+/// Montgomery product `a·b·2⁻⁶⁴ mod n` (odd `n < 2⁶³`, `a, b < n`, `ninv = −n⁻¹ mod 2⁶⁴`).
+#[inline(always)]
+fn mmul(a: u64, b: u64, n: u64, ninv: u64) -> u64 {
+    let t = a as u128 * b as u128;
+    let m = (t as u64).wrapping_mul(ninv);
+    // t < 2¹²⁶ and m·n < 2¹²⁷: no overflow
+    let r = ((t + m as u128 * n as u128) >> 64) as u64;
+    if r >= n {
+        r - n
+    } else {
+        r
+    }
+}
+
+/// Exponentiations done side by side (independent chains keep the multiplier busy).
+const LANES: usize = 4;
+
+/// `a_i^(e_i) mod n_i` for [`LANES`] lanes (odd `n_i < 2⁶³`, `a_i < n_i`): left-to-right,
+/// two exponent bits per step, in Montgomery form.
+fn pow_lanes(n: [u64; LANES], a: [u64; LANES], e: [u64; LANES]) -> [u64; LANES] {
+    use super::arith::mulmod;
+    let mut ninv = [0u64; LANES];
+    let mut tab = [[0u64; 4]; LANES];
+    for i in 0..LANES {
+        ninv[i] = inv_pow2_64(n[i]).wrapping_neg();
+        let one = (u64::MAX % n[i] + 1) % n[i]; // 2⁶⁴ mod n
+        let b = mulmod(a[i], one, n[i]); // a·2⁶⁴ mod n
+        let b2 = mmul(b, b, n[i], ninv[i]);
+        tab[i] = [one, b, b2, mmul(b2, b, n[i], ninv[i])];
+    }
+    let top = e.iter().map(|&x| 64 - x.leading_zeros()).max().unwrap_or(0);
+    let mut r = [0u64; LANES];
+    for i in 0..LANES {
+        r[i] = tab[i][0];
+    }
+    let mut pos = top.div_ceil(2) * 2;
+    while pos > 0 {
+        pos -= 2;
+        for i in 0..LANES {
+            let x = mmul(r[i], r[i], n[i], ninv[i]);
+            let x = mmul(x, x, n[i], ninv[i]);
+            r[i] = mmul(x, tab[i][((e[i] >> pos) & 3) as usize], n[i], ninv[i]);
+        }
+    }
+    let mut out = [0u64; LANES];
+    for i in 0..LANES {
+        out[i] = mmul(r[i], 1, n[i], ninv[i]);
+    }
+    out
+}
+
+/// Run `pow_lanes` over a list of `(n, a, e)`, calling `done(index, a^e mod n)`.
+fn pow_batch(items: &[(u64, u64, u64)], mut done: impl FnMut(usize, u64)) {
+    for (ci, chunk) in items.chunks(LANES).enumerate() {
+        let mut n = [3u64; LANES];
+        let mut a = [1u64; LANES];
+        let mut e = [0u64; LANES];
+        for (i, &(ni, ai, ei)) in chunk.iter().enumerate() {
+            n[i] = ni;
+            a[i] = ai;
+            e[i] = ei;
+        }
+        let r = pow_lanes(n, a, e);
+        for (i, &ri) in r.iter().enumerate().take(chunk.len()) {
+            done(ci * LANES + i, ri);
+        }
+    }
+}
+
+/// Roots of `k` mod each prime `q` of `work` (`(j, q)`), into `qn[j]` (count) and `qr[j]`.
+///
+/// * `q ≡ 2 (mod 3)`: the one root `a^((2q−1)/3)` (`3·(2q−1)/3 ≡ 1 mod q − 1`).
+/// * `q ≡ 1 (mod 3)`, `q − 1 = 3t`, `3 ∤ t`: `x = a^e` with `3e ≡ 1 (mod t)` is a root iff
+///   `k` is a cube at all (then the roots are `x, xω, xω²` with `ω = g^t ≠ 1`, tried with
+///   `g = 2` first, else [`cbrt_mod_prime`]).
+/// * `q ≡ 1 (mod 9)`: Euler's criterion `a^((q−1)/3) = 1` first, then [`cbrt_mod_prime`].
+/// * `q ≤ 3` or `q | k`: [`roots_mod_prime_power`].
+///
+/// The exponentiations of one kind run [`LANES`] at a time.
+fn cofactor_roots(k: i64, work: &[(u32, u64)], qn: &mut [u8], qr: &mut [[u64; 3]]) {
+    use super::arith::mulmod;
+    // (n, a, e) per lane and what the result means
+    let mut items: Vec<(u64, u64, u64)> = Vec::with_capacity(work.len());
+    let mut kind: Vec<u8> = Vec::with_capacity(work.len());
+    let mut idx: Vec<u32> = Vec::with_capacity(work.len());
+    for &(j, q) in work {
+        let ju = j as usize;
+        if q <= 3 || k % q as i64 == 0 {
+            let r = roots_mod_prime_power(k, q, 1);
+            qn[ju] = r.len() as u8;
+            qr[ju][..r.len()].copy_from_slice(&r);
+            continue;
+        }
+        let a = residue(k, q);
+        if q % 3 == 2 {
+            items.push((q, a, (2 * q - 1) / 3));
+            kind.push(0);
+        } else if q % 9 != 1 {
+            let t = (q - 1) / 3;
+            let e = if t % 3 == 1 {
+                (2 * t + 1) / 3
+            } else {
+                (t + 1) / 3
+            };
+            items.push((q, a, e));
+            kind.push(1);
+        } else {
+            items.push((q, a, (q - 1) / 3));
+            kind.push(2);
+        }
+        idx.push(j);
+    }
+    // second round: ω = 2^t for the q ≡ 1 (mod 3) where k is a cube: (j, q, x)
+    let mut omega_items: Vec<(u64, u64, u64)> = Vec::new();
+    let mut omega_x: Vec<(u32, u64)> = Vec::new();
+    pow_batch(&items, |i, r| {
+        let (q, a, _) = items[i];
+        let j = idx[i] as usize;
+        match kind[i] {
+            0 => {
+                qn[j] = 1;
+                qr[j][0] = r;
+            }
+            1 => {
+                if mulmod(mulmod(r, r, q), r, q) != a {
+                    qn[j] = 0;
+                } else {
+                    omega_items.push((q, 2, (q - 1) / 3));
+                    omega_x.push((idx[i], r));
+                }
+            }
+            _ => {
+                if r != 1 {
+                    qn[j] = 0;
+                } else {
+                    let (rs, n) = cbrt_mod_prime(a, q);
+                    debug_assert_eq!(n, 3);
+                    qn[j] = n as u8;
+                    qr[j] = rs;
+                }
+            }
+        }
+    });
+    pow_batch(&omega_items, |i, w| {
+        let q = omega_items[i].0;
+        let (j, x) = omega_x[i];
+        let j = j as usize;
+        if w != 1 {
+            let x2 = mulmod(x, w, q);
+            qn[j] = 3;
+            qr[j] = [x, x2, mulmod(x2, w, q)];
+        } else {
+            let (rs, n) = cbrt_mod_prime(residue(k, q), q);
+            debug_assert_eq!(n, 3);
+            qn[j] = n as u8;
+            qr[j] = rs;
+        }
+    });
 }
 
 #[cfg(test)]
