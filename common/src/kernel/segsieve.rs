@@ -121,6 +121,9 @@ fn strip(rem: &mut u64, p: u64, pinv: u64, plim: u64) -> u32 {
 /// A prime dividing `3k` (and `≤ √d_max`): its root lists mod `p^e`, `e = 0, 1, …`.
 struct Special {
     p: u64,
+    /// as in [`Small`]
+    pinv: u64,
+    plim: u64,
     lists: Vec<Vec<u64>>,
 }
 
@@ -171,7 +174,17 @@ impl SieveTable {
                 e += 1;
                 lists.push(roots_mod_prime_power(k, p, e));
             }
-            special.push(Special { p, lists });
+            let (pinv, plim) = if p & 1 == 1 {
+                (inv_pow2_64(p), u64::MAX / p)
+            } else {
+                (0, 0)
+            };
+            special.push(Special {
+                p,
+                pinv,
+                plim,
+                lists,
+            });
         }
         for p in primes_up_to(limit.min(seg as u64 - 1)) {
             if pk.contains(&p) {
@@ -240,7 +253,20 @@ pub struct SegScratch {
     gen_next: Vec<u64>,
     qn: Vec<u8>,
     qr: Vec<[u64; 3]>,
+    bn: Vec<u8>,
+    br: Vec<[u64; 3]>,
     work: Vec<(u32, u64)>,
+    cw: CofactorWork,
+}
+
+/// Buffers of [`cofactor_roots`].
+#[derive(Default)]
+struct CofactorWork {
+    items: Vec<(u64, u64, u64)>,
+    kind: Vec<u8>,
+    idx: Vec<u32>,
+    omega_items: Vec<(u64, u64, u64)>,
+    omega_x: Vec<(u32, u64)>,
 }
 
 /// Is `k` a cube mod the prime `p ≡ 1 (mod 3)`, `p ∤ k`? Euler: `a^((p−1)/3) ≡ 1`.
@@ -515,36 +541,26 @@ pub fn for_each_d(
             bucket.clear();
             sc.spare.push(bucket);
         }
-        // the factor list of the j-th d of the segment, slot c
-        let entry = |j: usize, c: usize, sc: &SegScratch| -> u32 {
+        // overflow entries grouped by d (the order of one d's primes does not matter)
+        sc.extra.sort_unstable_by_key(|e| e.0);
+        // the factor list of the j-th d of the segment: slot c, overflow entries from xb
+        let entry = |j: usize, c: usize, xb: usize, sc: &SegScratch| -> u32 {
             if c < SLOTS {
                 sc.fac[j * SLOTS + c]
             } else {
-                let mut seen = SLOTS;
-                for &(jj, v) in &sc.extra {
-                    if jj as usize == j {
-                        if seen == c {
-                            return v;
-                        }
-                        seen += 1;
-                    }
-                }
-                unreachable!("overflow slot recorded")
+                let (jj, v) = sc.extra[xb + c - SLOTS];
+                debug_assert_eq!(jj as usize, j);
+                v
             }
         };
-        // strip the c-th listed prime of d_j from rem; its prime and exponent
+        // strip one listed prime from rem; its prime and exponent
         let strip_entry = |v: u32, rem: &mut u64| -> (u64, u32) {
             if v & TAG_LARGE != 0 {
                 let p = ((v & !TAG_LARGE) as u64) << 1 | 1;
                 (p, strip_odd(rem, inv_pow2_64(p), u64::MAX / p))
             } else if v & TAG_SPECIAL != 0 {
-                let p = t.special[(v & !TAG_SPECIAL) as usize].p;
-                let mut e = 0;
-                while *rem % p == 0 {
-                    *rem /= p;
-                    e += 1;
-                }
-                (p, e)
+                let sp = &t.special[(v & !TAG_SPECIAL) as usize];
+                (sp.p, strip(rem, sp.p, sp.pinv, sp.plim))
             } else {
                 let g = &t.good[v as usize];
                 (g.p, strip(rem, g.p, g.pinv, g.plim))
@@ -554,14 +570,18 @@ pub fn for_each_d(
         sc.qn.resize(seg, 0);
         sc.qr.resize(seg, [0; 3]);
         sc.work.clear();
+        let mut xb = 0usize;
         for j in 0..len {
             let n = sc.nf[j];
             if n == DEAD {
                 continue;
             }
+            while xb < sc.extra.len() && (sc.extra[xb].0 as usize) < j {
+                xb += 1;
+            }
             let mut rem = a + j as u64;
             for c in 0..n as usize {
-                strip_entry(entry(j, c, sc), &mut rem);
+                strip_entry(entry(j, c, xb, sc), &mut rem);
             }
             if rem > 1 {
                 sc.work.push((j as u32, rem));
@@ -571,8 +591,32 @@ pub fn for_each_d(
             }
         }
         // pass 2: roots mod every q, many at a time (most q ≡ 1 mod 3 leave none)
-        cofactor_roots(k, &sc.work, &mut sc.qn, &mut sc.qr);
+        cofactor_roots(k, &sc.work, &mut sc.qn, &mut sc.qr, &mut sc.cw);
+        // pass 2b: roots mod the large sieved primes of the d still alive, likewise
+        sc.work.clear();
+        let mut xb = 0usize;
+        for j in 0..len {
+            let n = sc.nf[j];
+            if n == DEAD || sc.qn[j] == 0 {
+                continue;
+            }
+            while xb < sc.extra.len() && (sc.extra[xb].0 as usize) < j {
+                xb += 1;
+            }
+            for c in 0..n as usize {
+                let v = entry(j, c, xb, sc);
+                if v & TAG_LARGE != 0 {
+                    let i = sc.work.len() as u32;
+                    sc.work.push((i, ((v & !TAG_LARGE) as u64) << 1 | 1));
+                }
+            }
+        }
+        sc.bn.resize(sc.work.len(), 0);
+        sc.br.resize(sc.work.len(), [0; 3]);
+        cofactor_roots(k, &sc.work, &mut sc.bn, &mut sc.br, &mut sc.cw);
         // pass 3: roots mod every prime power, combined by CRT
+        let mut xb = 0usize;
+        let mut bi = 0usize;
         for j in 0..len {
             let d = a + j as u64;
             let n = sc.nf[j];
@@ -580,20 +624,31 @@ pub fn for_each_d(
                 f(d, &[]);
                 continue;
             }
+            while xb < sc.extra.len() && (sc.extra[xb].0 as usize) < j {
+                xb += 1;
+            }
             let mut rem = d;
             sc.roots.clear();
             let mut m = 1u64;
             let mut empty = false;
             for c in 0..n as usize {
-                let v = entry(j, c, sc);
+                let v = entry(j, c, xb, sc);
                 let (p, e) = strip_entry(v, &mut rem);
                 if v & TAG_LARGE != 0 {
-                    let (r, nr) = cbrt_mod_prime(residue(k, p), p);
+                    // the batch above, in the same order
+                    debug_assert_eq!(sc.work[bi].1, p);
+                    let (r, nr) = (sc.br[bi], sc.bn[bi] as usize);
+                    bi += 1;
                     debug_assert!(nr > 0);
+                    if empty {
+                        continue;
+                    }
                     let mut part = std::mem::take(&mut sc.part);
                     let pe = lift_into(k, p, e, &r[..nr], &mut part);
                     fold(&mut sc.roots, &mut sc.tmp, &mut m, &part, pe);
                     sc.part = part;
+                } else if empty {
+                    continue;
                 } else if v & TAG_SPECIAL != 0 {
                     let spc = &t.special[(v & !TAG_SPECIAL) as usize];
                     let pe = p.pow(e);
@@ -611,10 +666,8 @@ pub fn for_each_d(
                     fold(&mut sc.roots, &mut sc.tmp, &mut m, &part, pe);
                     sc.part = part;
                 }
-                if sc.roots.is_empty() {
-                    empty = true;
-                    break;
-                }
+                // keep walking the list (the batch cursor), but fold nothing more
+                empty = sc.roots.is_empty();
             }
             if empty {
                 f(d, &[]);
@@ -719,12 +772,27 @@ fn pow_batch(items: &[(u64, u64, u64)], mut done: impl FnMut(usize, u64)) {
 /// * `q ≤ 3` or `q | k`: [`roots_mod_prime_power`].
 ///
 /// The exponentiations of one kind run [`LANES`] at a time.
-fn cofactor_roots(k: i64, work: &[(u32, u64)], qn: &mut [u8], qr: &mut [[u64; 3]]) {
+fn cofactor_roots(
+    k: i64,
+    work: &[(u32, u64)],
+    qn: &mut [u8],
+    qr: &mut [[u64; 3]],
+    cw: &mut CofactorWork,
+) {
     use super::arith::mulmod;
     // (n, a, e) per lane and what the result means
-    let mut items: Vec<(u64, u64, u64)> = Vec::with_capacity(work.len());
-    let mut kind: Vec<u8> = Vec::with_capacity(work.len());
-    let mut idx: Vec<u32> = Vec::with_capacity(work.len());
+    let CofactorWork {
+        items,
+        kind,
+        idx,
+        omega_items,
+        omega_x,
+    } = cw;
+    items.clear();
+    kind.clear();
+    idx.clear();
+    omega_items.clear();
+    omega_x.clear();
     for &(j, q) in work {
         let ju = j as usize;
         if q <= 3 || k % q as i64 == 0 {
@@ -753,9 +821,7 @@ fn cofactor_roots(k: i64, work: &[(u32, u64)], qn: &mut [u8], qr: &mut [[u64; 3]
         idx.push(j);
     }
     // second round: ω = 2^t for the q ≡ 1 (mod 3) where k is a cube: (j, q, x)
-    let mut omega_items: Vec<(u64, u64, u64)> = Vec::new();
-    let mut omega_x: Vec<(u32, u64)> = Vec::new();
-    pow_batch(&items, |i, r| {
+    pow_batch(items, |i, r| {
         let (q, a, _) = items[i];
         let j = idx[i] as usize;
         match kind[i] {
@@ -783,7 +849,7 @@ fn cofactor_roots(k: i64, work: &[(u32, u64)], qn: &mut [u8], qr: &mut [[u64; 3]
             }
         }
     });
-    pow_batch(&omega_items, |i, w| {
+    pow_batch(omega_items, |i, w| {
         let q = omega_items[i].0;
         let (j, x) = omega_x[i];
         let j = j as usize;
