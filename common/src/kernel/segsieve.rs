@@ -580,10 +580,18 @@ pub fn for_each_d(
                 xb += 1;
             }
             let mut rem = a + j as u64;
+            let mut dead = false;
             for c in 0..n as usize {
-                strip_entry(entry(j, c, xb, sc), &mut rem);
+                let v = entry(j, c, xb, sc);
+                let (_, e) = strip_entry(v, &mut rem);
+                // a power of a divisor of 3k with no roots (e.g. 9 | d for k ≡ ±3 mod 9)
+                dead |= v & TAG_SPECIAL != 0
+                    && v & TAG_LARGE == 0
+                    && t.special[(v & !TAG_SPECIAL) as usize].lists[e as usize].is_empty();
             }
-            if rem > 1 {
+            if dead {
+                sc.qn[j] = 0;
+            } else if rem > 1 {
                 sc.work.push((j as u32, rem));
             } else {
                 sc.qn[j] = 1;
