@@ -253,6 +253,7 @@ pub struct SegScratch {
     gen_next: Vec<u64>,
     qn: Vec<u8>,
     qr: Vec<[u64; 3]>,
+    cof: Vec<u64>,
     bn: Vec<u8>,
     br: Vec<[u64; 3]>,
     work: Vec<(u32, u64)>,
@@ -569,6 +570,7 @@ pub fn for_each_d(
         // pass 1: the large cofactor q (1 or a prime > √d) of every d still alive
         sc.qn.resize(seg, 0);
         sc.qr.resize(seg, [0; 3]);
+        sc.cof.resize(seg, 0);
         sc.work.clear();
         let mut xb = 0usize;
         for j in 0..len {
@@ -589,6 +591,7 @@ pub fn for_each_d(
                     && v & TAG_LARGE == 0
                     && t.special[(v & !TAG_SPECIAL) as usize].lists[e as usize].is_empty();
             }
+            sc.cof[j] = rem;
             if dead {
                 sc.qn[j] = 0;
             } else if rem > 1 {
@@ -635,9 +638,21 @@ pub fn for_each_d(
             while xb < sc.extra.len() && (sc.extra[xb].0 as usize) < j {
                 xb += 1;
             }
-            let mut rem = d;
             sc.roots.clear();
             let mut m = 1u64;
+            // the cofactor q first (nothing to invert), then the small prime powers
+            let q = sc.cof[j];
+            if q > 1 {
+                let qr = sc.qr[j];
+                fold(
+                    &mut sc.roots,
+                    &mut sc.tmp,
+                    &mut m,
+                    &qr[..sc.qn[j] as usize],
+                    q,
+                );
+            }
+            let mut rem = d;
             let mut empty = false;
             for c in 0..n as usize {
                 let v = entry(j, c, xb, sc);
@@ -681,16 +696,7 @@ pub fn for_each_d(
                 f(d, &[]);
                 continue;
             }
-            if rem > 1 {
-                let qr = sc.qr[j];
-                fold(
-                    &mut sc.roots,
-                    &mut sc.tmp,
-                    &mut m,
-                    &qr[..sc.qn[j] as usize],
-                    rem,
-                );
-            }
+            debug_assert_eq!(rem, q.max(1));
             if m == 1 {
                 // d = 1: the single root 0
                 sc.roots.push(0);
@@ -699,6 +705,77 @@ pub fn for_each_d(
             f(d, &sc.roots);
         }
     }
+}
+
+/// Cube roots of `a` mod a prime `q ≡ 1 (mod 9)`, `q ∤ a`, from `x = a^e`, `y = a^t` and
+/// `G = 2^t`, where `q − 1 = 3^s·t`, `3 ∤ t`, `3e ≡ 1 (mod t)` (Adleman–Manders–Miller for
+/// cube roots, with a Pohlig–Hellman logarithm in the 3-Sylow subgroup `S`, `|S| = 3^s`).
+///
+/// `a` is a cube iff `y^(3^(s−1)) = 1`. Then `x³ = a·b` with `b = y^j ∈ S³` (`3e − 1 = j·t`),
+/// and if `2` is not a cube, `G` generates `S`: write `b = G^L` (`3 | L`, digit by digit), and
+/// `x·G^(−L/3)` is a root; the others are it times `ω = G^(3^(s−1))`. `None` when `2` is a cube
+/// mod `q` (the caller falls back to [`cbrt_mod_prime`]) or, defensively, when the check fails.
+fn cbrt_sylow(q: u64, a: u64, x: u64, y: u64, g: u64) -> Option<([u64; 3], usize)> {
+    use super::arith::{inv_mod, mulmod};
+    let mut t = q - 1;
+    let mut s = 0u32;
+    while t % 3 == 0 {
+        t /= 3;
+        s += 1;
+    }
+    let cube = |v: u64| mulmod(mulmod(v, v, q), v, q);
+    let cube_n = |mut v: u64, n: u32| {
+        for _ in 0..n {
+            v = cube(v);
+        }
+        v
+    };
+    if cube_n(y, s - 1) != 1 {
+        return Some(([0; 3], 0));
+    }
+    let omega = cube_n(g, s - 1);
+    if omega == 1 {
+        return None; // 2 is a cube mod q: no generator from it
+    }
+    let j = if t % 3 == 1 { 2 } else { 1 };
+    let b = if j == 2 { mulmod(y, y, q) } else { y };
+    // L = Σ l_i·3^i with G^L = b: at step i, (b·G^(−L_i))^(3^(s−1−i)) ∈ {1, ω, ω²} gives l_i
+    let ginv = inv_mod(g, q)?;
+    let omega2 = mulmod(omega, omega, q);
+    let mut cur = b;
+    let mut gp = ginv; // G^(−3^i)
+    let mut l = 0u64;
+    let mut p3 = 1u64;
+    for i in 0..s {
+        let c = cube_n(cur, s - 1 - i);
+        let digit = if c == 1 {
+            0
+        } else if c == omega {
+            1
+        } else if c == omega2 {
+            2
+        } else {
+            return None;
+        };
+        if digit > 0 {
+            cur = mulmod(cur, gp, q);
+            if digit == 2 {
+                cur = mulmod(cur, gp, q);
+            }
+            l += digit * p3;
+        }
+        gp = cube(gp);
+        p3 *= 3;
+    }
+    if cur != 1 || l % 3 != 0 {
+        return None;
+    }
+    let x0 = mulmod(x, super::arith::powmod(ginv, l / 3, q), q);
+    if cube(x0) != a {
+        return None;
+    }
+    let x1 = mulmod(x0, omega, q);
+    Some(([x0, x1, mulmod(x1, omega, q)], 3))
 }
 
 /// Montgomery product `a·b·2⁻⁶⁴ mod n` (odd `n < 2⁶³`, `a, b < n`, `ninv = −n⁻¹ mod 2⁶⁴`).
@@ -823,11 +900,23 @@ fn cofactor_roots(
             items.push((q, a, e));
             kind.push(1);
         } else {
-            items.push((q, a, (q - 1) / 3));
-            kind.push(2);
+            // q − 1 = 3^s·t, s ≥ 2: x = a^e, y = a^t and G = 2^t, side by side
+            let mut t = q - 1;
+            while t % 3 == 0 {
+                t /= 3;
+            }
+            let e = if t % 3 == 1 {
+                (2 * t + 1) / 3
+            } else {
+                (t + 1) / 3
+            };
+            items.extend_from_slice(&[(q, a, e), (q, a, t), (q, 2, t)]);
+            kind.extend_from_slice(&[2, 3, 4]);
+            idx.extend_from_slice(&[j, j]);
         }
         idx.push(j);
     }
+    let mut held = [0u64; 2];
     // second round: ω = 2^t for the q ≡ 1 (mod 3) where k is a cube: (j, q, x)
     pow_batch(items, |i, r| {
         let (q, a, _) = items[i];
@@ -845,16 +934,20 @@ fn cofactor_roots(
                     omega_x.push((idx[i], r));
                 }
             }
-            _ => {
-                if r != 1 {
-                    qn[j] = 0;
-                } else {
-                    let (rs, n) = cbrt_mod_prime(a, q);
-                    debug_assert_eq!(n, 3);
+            2 => held[0] = r,
+            3 => held[1] = r,
+            // the lanes of one q are consecutive: (q, a, e), (q, a, t), (q, 2, t)
+            _ => match cbrt_sylow(q, items[i - 1].1, held[0], held[1], r) {
+                Some((rs, n)) => {
                     qn[j] = n as u8;
                     qr[j] = rs;
                 }
-            }
+                None => {
+                    let (rs, n) = cbrt_mod_prime(items[i - 1].1, q);
+                    qn[j] = n as u8;
+                    qr[j] = rs;
+                }
+            },
         }
     });
     pow_batch(omega_items, |i, w| {
@@ -949,6 +1042,40 @@ mod tests {
                 for (d, r) in got.iter().step_by(101) {
                     assert_eq!(r, &cube_roots_mod(k, *d), "k={k} d={d}");
                 }
+            }
+        }
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+        // source: arith::cbrt_mod_prime (checked against brute force in arith); primes of
+        // every size up to 2⁶² and every 3-adic valuation of q − 1 (the batched paths)
+        #[test]
+        fn cofactor_roots_match_cbrt_mod_prime(
+            k in proptest::prop_oneof![1i64..1000, 1i64..=(1i64 << 40)],
+            starts in proptest::collection::vec(5u64..(1u64 << 62), 1..24),
+            nines in 0u32..6,
+        ) {
+            use crate::kernel::arith::is_prime_u64;
+            // primes at or above each start, every other one forced to q ≡ 1 (mod 3^(2+nines))
+            let mut qs = Vec::new();
+            for (i, &st) in starts.iter().enumerate() {
+                let step = if i % 2 == 0 { 2 } else { 2 * 3u64.pow(2 + nines) };
+                let mut q = if i % 2 == 0 { st | 1 } else { st - st % step + 1 };
+                while !is_prime_u64(q) || k % q as i64 == 0 {
+                    q += step;
+                }
+                qs.push(q);
+            }
+            let work: Vec<(u32, u64)> = qs.iter().enumerate().map(|(i, &q)| (i as u32, q)).collect();
+            let mut qn = vec![9u8; qs.len()];
+            let mut qr = vec![[0u64; 3]; qs.len()];
+            cofactor_roots(k, &work, &mut qn, &mut qr, &mut CofactorWork::default());
+            for (i, &q) in qs.iter().enumerate() {
+                let (want, n) = cbrt_mod_prime(residue(k, q), q);
+                let mut got = qr[i][..qn[i] as usize].to_vec();
+                got.sort_unstable();
+                proptest::prop_assert_eq!(&got[..], &want[..n], "k={} q={}", k, q);
             }
         }
     }
