@@ -20,6 +20,8 @@
 //! * `segment` — the factor sieve alone at `d ≈ 2·10¹⁵` for several segment lengths;
 //! * `extrapolate` — CPU time of a whole main region `B = 10¹⁶`, by sampling the `d` axis.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 use cubehunt_common::kernel::main_region::{
     cost, digest_counts_main, estimate_seconds_main, main_d_end, main_z_floor, scan_main,
     scan_main_path, Path,
