@@ -259,52 +259,66 @@ fn segment() {
     println!();
 }
 
-/// Whole main region at B = 10¹⁶: sample the d axis at 3 points per decade; at each, scan a
-/// slice of d with the whole |z| column when it holds few candidates per class, else the top
-/// part of the column, and scale the time by (candidates of the column)/(candidates scanned),
-/// the per-candidate work dominating there. Integrate the per-d cost over d geometrically.
+/// Whole main region at B = 10¹⁶: sample the d axis at 3 points per decade (geometric
+/// middles of the bins [10^(i/3), 10^((i+1)/3))). At each, count the candidates per d of the
+/// whole |z| column (Z0, B] on a probe of up to 1000 d (counting is cheap), then scan about
+/// 3·10⁷ candidates: as many consecutive d with their whole column as that allows (large d:
+/// up to 2·10⁶ d), or, when one column alone holds more, the top part of the column of up to
+/// 16 d (classes there are still ≥ 10⁶ long, so the same pattern-path regime), scaling the time
+/// by candidates. The per-d time, times the bin width, summed over the bins, is the estimate.
 fn extrapolate() {
     let b: u64 = 10_000_000_000_000_000;
-    println!("extrapolation to a whole main region, B = 10¹⁶, one core (fast path)");
-    for k in [114i64, 33] {
+    let budget = 3e7;
+    println!("extrapolation to a whole main region, B = 10¹⁶, one core");
+    for (k, path) in [
+        (114i64, Path::Fast),
+        (33, Path::Fast),
+        (114, Path::Reference),
+    ] {
         let z0 = cubehunt_common::kernel::arith::isqrt_u64(k as u64);
         let d_end = main_d_end(b);
         let mut total = 0.0f64;
         let mut lo = 1u64;
-        // sample points 10^(i/3)
         let mut i = 0u32;
-        println!("  k = {k}: d range [1, {d_end}); per-d CPU time at sample points:");
+        println!(
+            "  k = {k}, {path:?} path: d range [1, {d_end}); per-d CPU time at sample points:"
+        );
         while lo < d_end {
             let hi = ((10f64.powf((i + 1) as f64 / 3.0)) as u64).clamp(lo + 1, d_end);
-            // slice of d at the geometric middle of [lo, hi)
             let mid = ((lo as f64 * hi as f64).sqrt() as u64).clamp(lo, hi - 1);
-            let w = (hi - mid).clamp(
-                1,
-                if mid > 1_000_000_000 {
-                    2_000_000
-                } else {
-                    20_000
-                },
-            );
-            let full = rect(mid, mid + w, z0, b);
-            let cand_full = digest_counts_main(k, &full).candidates as f64;
-            // at most ~3·10⁷ candidates scanned per sample
-            let span_needed = (3e7 / (cand_full.max(1.0) / (b - z0) as f64)) as u64;
-            let z_lo = b.saturating_sub(span_needed).max(z0);
-            let slice = rect(mid, mid + w, z_lo, b);
-            let (t, out) = best(1, || scan_main(k, &slice, 1, &|_| {}));
-            let scale = if z_lo == z0 {
-                1.0
+            let probe = (hi - mid).min(1000);
+            let per_d_cand = digest_counts_main(k, &rect(mid, mid + probe, z0, b)).candidates
+                as f64
+                / probe as f64;
+            let (w, z_lo) = if per_d_cand * 16.0 <= budget {
+                let w = ((budget / per_d_cand.max(1.0)) as u64)
+                    .clamp(1, 2_000_000)
+                    .min(hi - mid);
+                (w, z0)
             } else {
-                cand_full / out.digest.candidates.max(1) as f64
+                let w = (hi - mid).min(16);
+                let column = (b - main_z_floor(mid).max(z0)) as f64;
+                let span = (budget / (per_d_cand * w as f64) * column) as u64;
+                (w, b - span.min(b - z0))
             };
-            let per_d = t * scale / w as f64;
+            let slice = rect(mid, mid + w, z_lo, b);
+            let (t, out) = best(1, || scan_main_path(k, &slice, 1, &|_| {}, path));
+            let per_d = if z_lo == z0 {
+                t / w as f64
+            } else {
+                // the column's candidates of these w d, from the same count
+                let full = digest_counts_main(k, &rect(mid, mid + w, z0, b)).candidates as f64;
+                t * full / out.digest.candidates.max(1) as f64 / w as f64
+            };
             total += per_d * (hi - lo) as f64;
             if i % 3 == 0 || hi == d_end {
                 println!(
-                    "    d ≈ {mid:>9.2e}: {per_d:.3e} s/d ({:.3e} candidates/d{})",
-                    cand_full / w as f64,
-                    if scale > 1.0 { ", column sampled" } else { "" },
+                    "    d ≈ {mid:>9.2e}: {per_d:.3e} s/d ({per_d_cand:.3e} candidates/d; {w} d{})",
+                    if z_lo > z0 {
+                        ", top of the column"
+                    } else {
+                        ", whole column"
+                    },
                     mid = mid as f64
                 );
             }
@@ -313,7 +327,7 @@ fn extrapolate() {
         }
         let model = estimate_seconds_main(k, &rect(1, d_end, z0, b));
         println!(
-            "  k = {k}: about {:.1} core-years for the main region to B = 10¹⁶ (cost model: {:.1} core-years)\n",
+            "  k = {k}, {path:?} path: about {:.1} core-years for the main region to B = 10¹⁶ (cost model of the fast path: {:.1} core-years)\n",
             total / 3.156e7,
             model / 3.156e7
         );

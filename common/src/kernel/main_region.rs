@@ -21,8 +21,18 @@
 //!   The few words' bits left over go to tiers 2 and 3, then to the exact test.
 //! * **short classes** (large `d`): `g(t) mod M1` by Horner for each `t`.
 //!
-//! Machine words (`u128`) carry the exact arithmetic while `u ≤ 2⁴¹`; beyond, each class's
-//! `g(0)` and each survivor's exact test use GMP. The sieve itself always runs on words.
+//! Machine words (`u128`) carry the exact test while `u ≤ 2⁴¹`; beyond, each survivor's exact
+//! test uses GMP. `g(0) mod M` of a class is computed in words for every `u` (from the
+//! definition while `u ≤ 2⁴¹`, else by exact 128-bit division or by expanding the cube around
+//! the root, see `g0_residues`). The sieve itself always runs on words.
+//!
+//! # Factoring the `d` axis
+//! The roots of `k` mod every `d` come from the bucketed segmented factor sieve of
+//! [`super::segsieve`] (each prime up to `√d` touches only the segments it hits; the roots
+//! mod the large cofactor of every `d` computed four at a time), or, for narrow ranges of huge
+//! `d`, from factoring each `d`. [`Path::Reference`] keeps the previous implementation (the
+//! classic table sieve of [`super::sieve`], `g(0)` in GMP beyond `2⁴¹`) for comparisons; both
+//! give the same digest.
 //!
 //! # The digest of a rectangle
 //! * `candidates`: pairs `(d, z)` of the region inside the rectangle with `z³ ≡ k (mod d)`.
@@ -601,19 +611,25 @@ fn approx_len(z0: u64, d: u64, z_lo: u64, z_hi: u64) -> f64 {
 }
 
 /// Split the rectangle into jobs of roughly `target` candidate-equivalents each, and at least
-/// `min_n` (when there are that many), at most `max_n` values of `d` each.
+/// `min_n` (when there are that many), at most `max_n` values of `d` each. Counting only
+/// (`count_only`), a class costs the same however long it is, so only the `d` count.
 fn plan_jobs(
     z0: u64,
     rect: &Rect,
     d_end: u64,
     target: f64,
     (min_n, max_n): (u64, u64),
+    count_only: bool,
 ) -> Vec<Job> {
     const PER_D: f64 = 60.0; // per-d overhead in candidate-equivalents
     let mut jobs = Vec::new();
     let mut d = rect.d_lo;
     while d < d_end {
-        let per_d = approx_len(z0, d, rect.z_lo, rect.z_hi) + PER_D;
+        let per_d = if count_only {
+            PER_D
+        } else {
+            approx_len(z0, d, rect.z_lo, rect.z_hi) + PER_D
+        };
         if per_d >= target {
             // one d, split along |z|
             let lo = region_floor(z0, d).max(rect.z_lo);
@@ -748,7 +764,7 @@ fn run(
         _ => (Factorer::PerD, (1, 1 << 20)),
     };
     let target = if count_only { 1e7 } else { 1e8 };
-    let jobs = plan_jobs(z0, rect, d_end, target, job_n);
+    let jobs = plan_jobs(z0, rect, d_end, target, job_n, count_only);
     let work = || {
         let accs: Vec<Acc> = jobs
             .par_iter()
