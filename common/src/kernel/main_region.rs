@@ -393,19 +393,30 @@ fn scan_class(ctx: &Ctx, acc: &mut Acc, d: u64, dd: &DivD, s: i64, res: u64, u0:
     } else {
         g0_residues(ctx.k, d, dd, s, res, u0)
     };
-    let p1 = Poly::<M1>::new(g0[0], u0, d);
-    let p2 = Poly::<M2>::new(g0[1], u0, d);
-    let p3 = Poly::<M3>::new(g0[2], u0, d);
     let dpar = (d & 1) as usize;
     let t = ctx.t;
+    if n == 1 {
+        // the usual case for large d: g(0) itself
+        if tier1(t, g0[0], dpar) && tier2(t, g0[1]) && tier3(t, g0[2]) {
+            survivor(ctx, acc, d, s, u0);
+        }
+        return;
+    }
+    let p1 = Poly::<M1>::new(g0[0], u0, d);
     if n < 8 {
+        // tiers 2 and 3 only for the few that pass tier 1
         for i in 0..n {
-            if tier1(t, p1.eval(i), dpar) && tier2(t, p2.eval(i)) && tier3(t, p3.eval(i)) {
+            if tier1(t, p1.eval(i), dpar)
+                && tier2(t, Poly::<M2>::new(g0[1], u0, d).eval(i))
+                && tier3(t, Poly::<M3>::new(g0[2], u0, d).eval(i))
+            {
                 survivor(ctx, acc, d, s, u0 + d * i);
             }
         }
         return;
     }
+    let p2 = Poly::<M2>::new(g0[1], u0, d);
+    let p3 = Poly::<M3>::new(g0[2], u0, d);
     if n < SIEVE_MIN_LEN {
         // g(t) mod M1 by finite differences of the cubic (n < SIEVE_MIN_LEN < M1)
         let e = [p1.eval(0), p1.eval(1), p1.eval(2), p1.eval(3)];
@@ -567,7 +578,7 @@ fn scan_d(ctx: &Ctx, acc: &mut Acc, d: u64, roots: &[u64], count_only: bool) {
     // least u > floor with u ≡ res (mod d), given floor + 1 and (floor + 1) mod d;
     // floor < 2⁶³ and res < d ≤ 2⁶³: no overflow
     let (la, lam) = (l + 1, (l + 1) % d);
-    let (lb, lbm) = (lo + 1, (lo + 1) % d);
+    let (lb, lbm) = if lo == l { (la, lam) } else { (lo + 1, (lo + 1) % d) };
     let up = |f1: u64, f1m: u64, res: u64| -> u64 {
         let delta = if res >= f1m { res - f1m } else { res + d - f1m };
         f1 + delta
@@ -584,7 +595,8 @@ fn scan_d(ctx: &Ctx, acc: &mut Acc, d: u64, roots: &[u64], count_only: bool) {
             if u0 > ctx.z_hi {
                 continue;
             }
-            let n = (ctx.z_hi - u0) / d + 1;
+            let rest = ctx.z_hi - u0;
+            let n = if rest < d { 1 } else { rest / d + 1 };
             acc.digest.candidates += n;
             if !count_only {
                 scan_class(ctx, acc, d, &dd, s, res, u0, n);
