@@ -578,7 +578,11 @@ fn scan_d(ctx: &Ctx, acc: &mut Acc, d: u64, roots: &[u64], count_only: bool) {
     // least u > floor with u ≡ res (mod d), given floor + 1 and (floor + 1) mod d;
     // floor < 2⁶³ and res < d ≤ 2⁶³: no overflow
     let (la, lam) = (l + 1, (l + 1) % d);
-    let (lb, lbm) = if lo == l { (la, lam) } else { (lo + 1, (lo + 1) % d) };
+    let (lb, lbm) = if lo == l {
+        (la, lam)
+    } else {
+        (lo + 1, (lo + 1) % d)
+    };
     let up = |f1: u64, f1m: u64, res: u64| -> u64 {
         let delta = if res >= f1m { res - f1m } else { res + d - f1m };
         f1 + delta

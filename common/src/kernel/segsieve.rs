@@ -707,6 +707,30 @@ pub fn for_each_d(
     }
 }
 
+/// `G = g^t` for the least non-cube `g ≥ 3` mod the prime `q ≡ 1 (mod 3)`, `q − 1 = 3^s·t`,
+/// `3 ∤ t`: a generator of the 3-Sylow subgroup (for `s = 1`, a primitive cube root of unity).
+fn sylow_generator(q: u64) -> u64 {
+    use super::arith::{mulmod, powmod_fast};
+    let mut t = q - 1;
+    let mut s = 0u32;
+    while t % 3 == 0 {
+        t /= 3;
+        s += 1;
+    }
+    let mut g = 3u64;
+    loop {
+        let w = powmod_fast(g, t, q);
+        let mut c = w;
+        for _ in 1..s {
+            c = mulmod(mulmod(c, c, q), c, q);
+        }
+        if c != 1 {
+            return w;
+        }
+        g += 1;
+    }
+}
+
 /// Cube roots of `a` mod a prime `q ≡ 1 (mod 9)`, `q ∤ a`, from `x = a^e`, `y = a^t` and
 /// `G = 2^t`, where `q − 1 = 3^s·t`, `3 ∤ t`, `3e ≡ 1 (mod t)` (Adleman–Manders–Miller for
 /// cube roots, with a Pohlig–Hellman logarithm in the 3-Sylow subgroup `S`, `|S| = 3^s`).
@@ -937,17 +961,15 @@ fn cofactor_roots(
             2 => held[0] = r,
             3 => held[1] = r,
             // the lanes of one q are consecutive: (q, a, e), (q, a, t), (q, 2, t)
-            _ => match cbrt_sylow(q, items[i - 1].1, held[0], held[1], r) {
-                Some((rs, n)) => {
-                    qn[j] = n as u8;
-                    qr[j] = rs;
-                }
-                None => {
-                    let (rs, n) = cbrt_mod_prime(items[i - 1].1, q);
-                    qn[j] = n as u8;
-                    qr[j] = rs;
-                }
-            },
+            _ => {
+                let a = items[i - 1].1;
+                // 2 a cube mod q (one time in three): the next non-cube g instead
+                let found = cbrt_sylow(q, a, held[0], held[1], r)
+                    .or_else(|| cbrt_sylow(q, a, held[0], held[1], sylow_generator(q)));
+                let (rs, n) = found.unwrap_or_else(|| cbrt_mod_prime(a, q));
+                qn[j] = n as u8;
+                qr[j] = rs;
+            }
         }
     });
     pow_batch(omega_items, |i, w| {
@@ -959,10 +981,11 @@ fn cofactor_roots(
             qn[j] = 3;
             qr[j] = [x, x2, mulmod(x2, w, q)];
         } else {
-            let (rs, n) = cbrt_mod_prime(residue(k, q), q);
-            debug_assert_eq!(n, 3);
-            qn[j] = n as u8;
-            qr[j] = rs;
+            // 2 is a cube mod q: ω = g^t for the next non-cube g
+            let w = sylow_generator(q);
+            let x2 = mulmod(x, w, q);
+            qn[j] = 3;
+            qr[j] = [x, x2, mulmod(x2, w, q)];
         }
     });
 }
