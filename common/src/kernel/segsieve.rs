@@ -257,6 +257,7 @@ pub struct SegScratch {
     bn: Vec<u8>,
     br: Vec<[u64; 3]>,
     work: Vec<(u32, u64)>,
+    alive: Vec<u32>,
     cw: CofactorWork,
 }
 
@@ -376,8 +377,12 @@ fn fold(roots: &mut Vec<u64>, tmp: &mut Vec<u64>, m: &mut u64, part: &[u64], pe:
         roots.clear();
         roots.extend_from_slice(part);
     } else if pe < 1 << 32 {
-        // x = a + m·((b − a)·m⁻¹ mod pe): all in 64-bit words
-        let inv = inv_mod_u32((*m % pe) as u32, pe as u32) as u64;
+        // x = a + m·((b − a)·m⁻¹ mod pe): all in 64-bit words (m is odd when pe = 2^e)
+        let inv = if pe.is_power_of_two() {
+            inv_pow2_64(*m) & (pe - 1)
+        } else {
+            inv_mod_u32((*m % pe) as u32, pe as u32) as u64
+        };
         tmp.clear();
         for &a in roots.iter() {
             let am = a % pe;
@@ -410,8 +415,9 @@ fn lift_into(k: i64, p: u64, e: u32, r: &[u64], part: &mut Vec<u64>) -> u64 {
     pe
 }
 
-/// Call `f(d, roots)` for every `d ∈ [d_lo, d_hi)` in increasing order, with the cube roots
-/// of `k` mod `d` (unsorted; possibly empty). `table` must cover `d_hi` ([`SieveTable::covers`]).
+/// Call `f(d, roots)` for every `d ∈ [d_lo, d_hi)` that has cube roots of `k` mod `d`, in
+/// increasing order, with those roots (unsorted; never empty — a `d` without roots is not
+/// reported). `table` must cover `d_hi` ([`SieveTable::covers`]).
 pub fn for_each_d(
     table: &SieveTable,
     d_lo: u64,
@@ -573,11 +579,13 @@ pub fn for_each_d(
         sc.cof.resize(seg, 0);
         sc.work.clear();
         let mut xb = 0usize;
+        sc.alive.clear();
         for j in 0..len {
             let n = sc.nf[j];
             if n == DEAD {
                 continue;
             }
+            sc.alive.push(j as u32);
             while xb < sc.extra.len() && (sc.extra[xb].0 as usize) < j {
                 xb += 1;
             }
@@ -606,11 +614,15 @@ pub fn for_each_d(
         // pass 2b: roots mod the large sieved primes of the d still alive, likewise
         sc.work.clear();
         let mut xb = 0usize;
-        for j in 0..len {
+        let mut live = 0usize;
+        for ai in 0..sc.alive.len() {
+            let j = sc.alive[ai] as usize;
             let n = sc.nf[j];
-            if n == DEAD || sc.qn[j] == 0 {
+            if sc.qn[j] == 0 {
                 continue;
             }
+            sc.alive[live] = j as u32;
+            live += 1;
             while xb < sc.extra.len() && (sc.extra[xb].0 as usize) < j {
                 xb += 1;
             }
@@ -628,13 +640,10 @@ pub fn for_each_d(
         // pass 3: roots mod every prime power, combined by CRT
         let mut xb = 0usize;
         let mut bi = 0usize;
-        for j in 0..len {
+        for ai in 0..live {
+            let j = sc.alive[ai] as usize;
             let d = a + j as u64;
             let n = sc.nf[j];
-            if n == DEAD || sc.qn[j] == 0 {
-                f(d, &[]);
-                continue;
-            }
             while xb < sc.extra.len() && (sc.extra[xb].0 as usize) < j {
                 xb += 1;
             }
@@ -693,7 +702,6 @@ pub fn for_each_d(
                 empty = sc.roots.is_empty();
             }
             if empty {
-                f(d, &[]);
                 continue;
             }
             debug_assert_eq!(rem, q.max(1));
@@ -996,14 +1004,21 @@ mod tests {
     use crate::kernel::arith::cube_roots_mod;
     use crate::kernel::sieve;
 
+    /// Every d of [lo, hi) with its sorted roots (empty when the sieve did not report it).
     fn collect_new(k: i64, lo: u64, hi: u64) -> Vec<(u64, Vec<u64>)> {
         let t = SieveTable::new(k, hi);
         let mut sc = SegScratch::default();
-        let mut got = Vec::new();
+        let mut got: Vec<(u64, Vec<u64>)> = (lo..hi).map(|d| (d, Vec::new())).collect();
+        let mut last = None;
         for_each_d(&t, lo, hi, &mut sc, |d, r| {
+            assert!(
+                !r.is_empty() && last < Some(d),
+                "d={d}: increasing, with roots"
+            );
+            last = Some(d);
             let mut r = r.to_vec();
             r.sort_unstable();
-            got.push((d, r));
+            got[(d - lo) as usize].1 = r;
         });
         got
     }
