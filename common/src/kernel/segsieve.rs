@@ -825,20 +825,48 @@ fn mmul(a: u64, b: u64, n: u64, ninv: u64) -> u64 {
 }
 
 /// Exponentiations done side by side (independent chains keep the multiplier busy).
-const LANES: usize = 4;
+const LANES: usize = 8;
+
+/// Montgomery product without the final reduction, for `n < 2⁶²` and `a, b < 2n`: the result
+/// is `< 2n` again (`a·b + m·n < 4n² + 2⁶⁴·n < 2⁶⁵·n`).
+#[inline(always)]
+fn mmul_lazy(a: u64, b: u64, n: u64, ninv: u64) -> u64 {
+    let t = a as u128 * b as u128;
+    let m = (t as u64).wrapping_mul(ninv);
+    ((t + m as u128 * n as u128) >> 64) as u64
+}
 
 /// `a_i^(e_i) mod n_i` for [`LANES`] lanes (odd `n_i < 2⁶³`, `a_i < n_i`): left-to-right,
-/// two exponent bits per step, in Montgomery form.
+/// two exponent bits per step, in Montgomery form (lazily reduced when every `n_i < 2⁶²`).
 fn pow_lanes(n: [u64; LANES], a: [u64; LANES], e: [u64; LANES]) -> [u64; LANES] {
+    if n.iter().all(|&x| x < 1 << 62) {
+        pow_lanes_with::<true>(n, a, e)
+    } else {
+        pow_lanes_with::<false>(n, a, e)
+    }
+}
+
+fn pow_lanes_with<const LAZY: bool>(
+    n: [u64; LANES],
+    a: [u64; LANES],
+    e: [u64; LANES],
+) -> [u64; LANES] {
     use super::arith::mulmod;
+    let mul = |x: u64, y: u64, n: u64, ninv: u64| {
+        if LAZY {
+            mmul_lazy(x, y, n, ninv)
+        } else {
+            mmul(x, y, n, ninv)
+        }
+    };
     let mut ninv = [0u64; LANES];
     let mut tab = [[0u64; 4]; LANES];
     for i in 0..LANES {
         ninv[i] = inv_pow2_64(n[i]).wrapping_neg();
         let one = (u64::MAX % n[i] + 1) % n[i]; // 2⁶⁴ mod n
         let b = mulmod(a[i], one, n[i]); // a·2⁶⁴ mod n
-        let b2 = mmul(b, b, n[i], ninv[i]);
-        tab[i] = [one, b, b2, mmul(b2, b, n[i], ninv[i])];
+        let b2 = mul(b, b, n[i], ninv[i]);
+        tab[i] = [one, b, b2, mul(b2, b, n[i], ninv[i])];
     }
     let top = e.iter().map(|&x| 64 - x.leading_zeros()).max().unwrap_or(0);
     let mut r = [0u64; LANES];
@@ -849,14 +877,16 @@ fn pow_lanes(n: [u64; LANES], a: [u64; LANES], e: [u64; LANES]) -> [u64; LANES] 
     while pos > 0 {
         pos -= 2;
         for i in 0..LANES {
-            let x = mmul(r[i], r[i], n[i], ninv[i]);
-            let x = mmul(x, x, n[i], ninv[i]);
-            r[i] = mmul(x, tab[i][((e[i] >> pos) & 3) as usize], n[i], ninv[i]);
+            let x = mul(r[i], r[i], n[i], ninv[i]);
+            let x = mul(x, x, n[i], ninv[i]);
+            r[i] = mul(x, tab[i][((e[i] >> pos) & 3) as usize], n[i], ninv[i]);
         }
     }
     let mut out = [0u64; LANES];
     for i in 0..LANES {
-        out[i] = mmul(r[i], 1, n[i], ninv[i]);
+        // r < 2n: r·2⁻⁶⁴ reduces to at most n
+        let v = mmul_lazy(r[i], 1, n[i], ninv[i]);
+        out[i] = if v >= n[i] { v - n[i] } else { v };
     }
     out
 }
@@ -1114,6 +1144,30 @@ mod tests {
                 let mut got = qr[i][..qn[i] as usize].to_vec();
                 got.sort_unstable();
                 proptest::prop_assert_eq!(&got[..], &want[..n], "k={} q={}", k, q);
+            }
+        }
+    }
+
+    proptest::proptest! {
+        // source: arith::powmod (plain square-and-multiply with 128-bit remainders); moduli
+        // below and above 2⁶² (lazy and strict reduction)
+        #[test]
+        fn pow_lanes_match_powmod(
+            ns in proptest::collection::vec(1u64..(1u64 << 62), LANES),
+            big in proptest::bool::ANY,
+            xs in proptest::collection::vec(proptest::num::u64::ANY, 2 * LANES),
+        ) {
+            let mut n = [0u64; LANES];
+            let mut a = [0u64; LANES];
+            let mut e = [0u64; LANES];
+            for i in 0..LANES {
+                n[i] = (2 * ns[i] + 1) | if big && i == 0 { 1 << 62 } else { 0 };
+                a[i] = xs[i] % n[i];
+                e[i] = xs[LANES + i] >> (i * 7);
+            }
+            let got = pow_lanes(n, a, e);
+            for i in 0..LANES {
+                proptest::prop_assert_eq!(got[i], crate::kernel::arith::powmod(a[i], e[i], n[i]));
             }
         }
     }
