@@ -873,9 +873,10 @@ pub mod cost {
     pub const PER_CLASS_BIG: f64 = 50e-9;
     /// Per `d` (bucketed factor sieve, factor stripping, batched roots of the large cofactor,
     /// CRT): `PER_D_BASE + PER_D_PER_BIT · log₂ d` (was 25 ns + 7.5 ns·log₂ d with the
-    /// classic table sieve: about 400 ns at `d ≈ 2·10¹⁵`, now about 170 ns).
-    pub const PER_D_BASE: f64 = 40e-9;
-    pub const PER_D_PER_BIT: f64 = 2.5e-9;
+    /// classic table sieve: about 400 ns at `d ≈ 2·10¹⁵`, now about 115 ns; fitted to the
+    /// bench's `paths` figures at `d ≈ 10⁹` and `2·10¹⁵` less their classes and candidates).
+    pub const PER_D_BASE: f64 = 30e-9;
+    pub const PER_D_PER_BIT: f64 = 1.7e-9;
     /// Per prime up to `√d`, per job: generating it and placing it in its bucket (each job of
     /// about `max(2²⁰, 8·√d)` values of `d` does this once).
     pub const PER_SIEVE_PRIME: f64 = 26e-9;
