@@ -866,17 +866,19 @@ pub mod cost {
     pub const PER_CANDIDATE_SHORT: f64 = 2.9e-9;
     /// Building the patterns of one long class.
     pub const PER_LONG_CLASS: f64 = 0.8e-6;
-    /// Per class in machine words (`g(0)`, first member, class length).
-    pub const PER_CLASS: f64 = 40e-9;
+    /// Per class in machine words (`g(0)`, first member, class length), plus the root work
+    /// (cofactor root, CRT) that grows with the number of roots per `d`.
+    pub const PER_CLASS: f64 = 70e-9;
     /// Per class beyond `|z| > 2⁴¹` (`g(0)` still in words, from the expansion of the cube;
     /// was 0.6 µs with `g(0)` in GMP).
-    pub const PER_CLASS_BIG: f64 = 50e-9;
+    pub const PER_CLASS_BIG: f64 = 80e-9;
     /// Per `d` (bucketed factor sieve, factor stripping, batched roots of the large cofactor,
     /// CRT): `PER_D_BASE + PER_D_PER_BIT · log₂ d` (was 25 ns + 7.5 ns·log₂ d with the
-    /// classic table sieve: about 400 ns at `d ≈ 2·10¹⁵`, now about 115 ns; fitted to the
-    /// bench's `paths` figures at `d ≈ 10⁹` and `2·10¹⁵` less their classes and candidates).
-    pub const PER_D_BASE: f64 = 30e-9;
-    pub const PER_D_PER_BIT: f64 = 1.7e-9;
+    /// classic table sieve: about 400 ns at `d ≈ 2·10¹⁵`, now about 115 ns; fitted with
+    /// `PER_CLASS` to the bench's `paths` figures for k = 114 at `d ≈ 10⁹, 2·10¹⁵` and the
+    /// per-d figures for k = 33 at `d ≈ 10⁸, 10¹⁰`, within about 20%).
+    pub const PER_D_BASE: f64 = 40e-9;
+    pub const PER_D_PER_BIT: f64 = 1.5e-9;
     /// Per prime up to `√d`, per job: generating it and placing it in its bucket (each job of
     /// about `max(2²⁰, 8·√d)` values of `d` does this once).
     pub const PER_SIEVE_PRIME: f64 = 26e-9;
