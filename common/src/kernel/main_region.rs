@@ -146,6 +146,9 @@ pub(crate) struct Acc {
     pub solutions: Vec<Solution>,
 }
 
+/// Most `d` in one job of the bucketed sieve (bounds its memory).
+const JOB_D_MAX: u64 = 1 << 24;
+
 /// Classes shorter than this are tested one `t` at a time.
 pub const SIEVE_MIN_LEN: u64 = 256;
 
@@ -769,9 +772,14 @@ fn run(
         Path::Fast if SieveTable::worth_sieving(rect.d_lo, d_end) => {
             let t = SieveTable::new(k, d_end);
             // each job generates the primes up to √d: make jobs long enough to amortise that
-            // (a few ns per prime against tens of ns per d), but keep one per thread
+            // (about 26 ns per prime against ~100 ns per d), but keep one per thread, and at
+            // most 2²⁴ d, which bounds the bucket entries of a job (about π(W) + W/4 for a
+            // width W < √d: about 50 MB at d ≈ 2⁶³)
             let span = d_end - rect.d_lo;
-            let n = (8 * t.limit()).min(span.div_ceil(nthreads)).max(1 << 20);
+            let n = (8 * t.limit())
+                .min(JOB_D_MAX)
+                .min(span.div_ceil(nthreads))
+                .max(1 << 20);
             (Factorer::Seg(t), (n, n))
         }
         Path::Reference if PrimeTable::worth_sieving(rect.d_lo, d_end) => {
@@ -880,7 +888,7 @@ pub mod cost {
     pub const PER_D_BASE: f64 = 40e-9;
     pub const PER_D_PER_BIT: f64 = 1.5e-9;
     /// Per prime up to `√d`, per job: generating it and placing it in its bucket (each job of
-    /// about `max(2²⁰, 8·√d)` values of `d` does this once).
+    /// about `max(2²⁰, min(8·√d, 2²⁴))` values of `d` does this once).
     pub const PER_SIEVE_PRIME: f64 = 26e-9;
     /// Per `d` factored on its own (Pollard–Brent; narrow ranges of huge `d`).
     pub const PER_D_FACTORED: f64 = 28e-6;
@@ -970,7 +978,8 @@ pub fn estimate_seconds_main(k: i64, rect: &Rect) -> f64 {
     let ratio = (b / a).powf(1.0 / pieces as f64);
     if SieveTable::worth_sieving(rect.d_lo, d_end) {
         let lim = (b.sqrt()).max(2.0);
-        let jobs = ((b - a) / (8.0 * lim).max(1_048_576.0)).ceil().max(1.0);
+        let job = (8.0 * lim).min(JOB_D_MAX as f64).max(1_048_576.0);
+        let jobs = ((b - a) / job).ceil().max(1.0);
         total += PER_SIEVE_PRIME * lim / lim.ln().max(1.0) * jobs;
     } else {
         total += (b - a) * PER_D_FACTORED;

@@ -1,31 +1,37 @@
 //! The cube roots of `k` modulo every `d` of a range, by a segmented factor sieve whose memory
 //! does not grow with `√d`.
 //!
-//! The `d` axis of one piece of work `[d_lo, d_hi)` is swept in segments of [`seg_len`] values.
+//! The `d` axis of one piece of work `[d_lo, d_hi)` is swept in segments of [`SEG_DEFAULT`]
+//! values (or another power of two, [`SieveTable::with_seg`]; the roots do not depend on it).
 //! Every prime `p ≤ √(d_hi − 1)` that divides some `d` of the piece is found by sieving, in one
 //! of three ways (as in a segmented sieve of Eratosthenes):
-//! * **small primes** `p < seg_len` (classified once per rectangle, [`SieveTable`]): per-prime
+//! * **small primes** `p <` segment length (classified once per rectangle, [`SieveTable`]): per-prime
 //!   offsets of the next multiple, carried from segment to segment. *Dead* primes (`p ≡ 1
 //!   mod 3`, `p ∤ 3k`, `k` not a cube mod `p`: no `d` they divide has a root) mark their
 //!   multiples; the others append themselves to the factor slots of the multiples still alive.
 //! * **primes dividing `3k`** (at most 13): the same, with their root lists mod every `p^e`.
-//! * **large primes** `seg_len ≤ p ≤ √(d_hi − 1)`: generated per piece by a segmented sieve of
+//! * **large primes** from the segment length up to `√(d_hi − 1)`: generated per piece by a segmented sieve of
 //!   Eratosthenes (base primes up to `d^{1/4}`), and each put in the *bucket* of the segment
 //!   holding its next multiple; a segment visits only the primes of its bucket, which move on
 //!   to the bucket of their next multiple. A prime is classified (dead or not) when it first
 //!   hits a `d` still alive, and the answer travels with it.
 //!
 //! A `d` that no dead prime divides is then stripped of its listed primes; what is left is 1
-//! or one prime `q > √d` (all smaller primes were sieved). Its roots are computed first (for
-//! `q ≡ 1 mod 3` most `k` are not cubes and the `d` drops out), then the roots mod each prime
-//! power (stored for small primes, computed for large ones, Hensel-lifted for exponents > 1)
-//! are combined by CRT. Buffers live in [`SegScratch`] and are reused: no allocation per `d`.
+//! or one prime `q > √d` (all smaller primes were sieved). A `d` with a power of a divisor of
+//! `3k` that has no roots drops out there. For the others, the roots mod `q` of the whole
+//! segment are computed next, eight modular exponentiations side by side
+//! ([`cofactor_roots`]; for `q ≡ 1 mod 3` most `k` are not cubes and the `d` drops out), then
+//! those mod the large sieved primes of the `d` still alive, the same way; finally the roots
+//! mod each prime power (stored for small primes, Hensel-lifted for exponents > 1) are
+//! combined by CRT. Only the `d` with roots are reported. Buffers live in [`SegScratch`] and
+//! are reused: no allocation per `d`.
 //!
 //! Memory: the per-segment arrays, the small-prime table, and one 8-byte bucket entry per large
 //! prime that still has a multiple ahead in the piece — at most `π(√d_hi)`, and about
 //! `π(W) + W·ln(ln √d / ln W)` for a piece of width `W < √d`: bounded by the width of the
-//! piece, not by `√d`. The classic table of every prime up to `√d` with its roots
-//! ([`super::sieve`], kept as the reference) is not needed.
+//! piece, not by `√d` (the main region keeps pieces to at most 2²⁴ values of `d`: about
+//! 50 MB of buckets even near `d = 2⁶³`). The classic table of every prime up to `√d` with
+//! its roots ([`super::sieve`], kept as the reference) is not needed.
 //!
 //! Produces exactly the roots of [`super::sieve::for_each_d`] (tested), in another order.
 
@@ -36,9 +42,10 @@ use super::arith::{
     residue, roots_mod_prime_power, Mont,
 };
 
-/// Default segment length (values of `d` per sweep): the per-segment arrays (about 30 bytes
-/// per `d`) fit the L2 cache of the development machine (1 MiB per core). Measured by
-/// `cargo bench -p cubehunt-common --bench kernel` (segment sweep).
+/// Default segment length (values of `d` per sweep; the per-segment arrays take about 55
+/// bytes per `d`). Measured by `cargo bench -p cubehunt-common --bench kernel -- segment` on
+/// the development machine (1 MiB L2 per core): 2¹²…2¹⁵ within noise of each other, 2¹⁵ the
+/// best, 2¹⁶ and longer slower.
 pub const SEG_DEFAULT: usize = 1 << 15;
 /// Factor slots per `d` inside the segment arrays; further primes of the same `d` go to a
 /// per-segment overflow list (rare: 5 distinct sieved primes above the smallest ones).
@@ -49,20 +56,6 @@ const DEAD: u8 = u8::MAX;
 /// special prime (`p | 3k`) as `TAG_SPECIAL | index`; a small prime as its table index.
 const TAG_LARGE: u32 = 1 << 31;
 const TAG_SPECIAL: u32 = 1 << 30;
-
-/// Segment length in use: [`SEG_DEFAULT`], or `CUBEHUNT_SEG_LOG2` (10..=20) when set, for
-/// measuring (the roots and the digest do not depend on it).
-pub fn seg_len() -> usize {
-    static S: std::sync::OnceLock<usize> = std::sync::OnceLock::new();
-    *S.get_or_init(|| {
-        std::env::var("CUBEHUNT_SEG_LOG2")
-            .ok()
-            .and_then(|v| v.parse::<u32>().ok())
-            .filter(|b| (10..=20).contains(b))
-            .map(|b| 1usize << b)
-            .unwrap_or(SEG_DEFAULT)
-    })
-}
 
 /// A small prime that is not dead and does not divide `3k`, with its roots mod `p`.
 #[derive(Clone, Debug)]
@@ -127,7 +120,7 @@ struct Special {
     lists: Vec<Vec<u64>>,
 }
 
-/// What is shared by every piece of one rectangle: the small primes (`< seg_len()`)
+/// What is shared by every piece of one rectangle: the small primes (below the segment length)
 /// classified for `k`, the primes dividing `3k` with their roots, and the base primes for
 /// generating the large ones.
 pub struct SieveTable {
@@ -144,7 +137,7 @@ pub struct SieveTable {
 impl SieveTable {
     /// Classify the small primes and the divisors of `3k`, for pieces with `d < d_max`.
     pub fn new(k: i64, d_max: u64) -> SieveTable {
-        Self::with_seg(k, d_max, seg_len())
+        Self::with_seg(k, d_max, SEG_DEFAULT)
     }
 
     /// [`SieveTable::new`] with segment length `seg` (a power of two in `[2¹⁰, 2²⁰]`).
