@@ -77,7 +77,8 @@ pub fn inv_pow2_128(n: u64) -> u128 {
 impl Mont {
     pub fn new(n: u64) -> Mont {
         debug_assert!(n & 1 == 1 && n < 1 << 63);
-        let r = ((1u128 << 64) % n as u128) as u64;
+        // 2⁶⁴ mod n = ((2⁶⁴ − 1) mod n + 1) mod n, without a 128-bit division
+        let r = (u64::MAX % n + 1) % n;
         let r2 = mulmod(r, r, n);
         Mont {
             n,
@@ -364,7 +365,13 @@ pub fn primes_up_to(n: u64) -> Vec<u64> {
 /// `k mod m` as a residue in `[0, m)`.
 #[inline]
 pub fn residue(k: i64, m: u64) -> u64 {
-    (k as i128).rem_euclid(m as i128) as u64
+    // 64-bit divisions only (a 128-bit remainder is a library call)
+    let r = k.unsigned_abs() % m;
+    if k < 0 && r != 0 {
+        m - r
+    } else {
+        r
+    }
 }
 
 /// The cube roots of `a` modulo a prime `p` with `p ∤ a`: 0, 1 or 3 of them, in the first
@@ -783,6 +790,22 @@ mod tests {
                 r * r <= n && (r + 1).checked_mul(r + 1).is_none_or(|v| v > n),
                 "{n}"
             );
+        }
+    }
+
+    proptest! {
+        // source: i128::rem_euclid of the standard library
+        #[test]
+        fn residue_is_the_euclidean_remainder(k in proptest::num::i64::ANY, m in 1u64..=u64::MAX) {
+            prop_assert_eq!(residue(k, m) as i128, (k as i128).rem_euclid(m as i128));
+        }
+
+        // source: the definition, 2⁶⁴·2⁶⁴ reduced with u128 arithmetic
+        #[test]
+        fn montgomery_round_trip(n in (1u64..(1u64 << 62)).prop_map(|n| 2 * n + 1), a in proptest::num::u64::ANY, b in proptest::num::u64::ANY) {
+            let m = Mont::new(n);
+            let want = ((a % n) as u128 * (b % n) as u128 % n as u128) as u64;
+            prop_assert_eq!(m.from(m.mul(m.to(a), m.to(b))), want);
         }
     }
 

@@ -1,6 +1,8 @@
 //! Divisors from a factorisation, for the small-z region (the factorisation itself is
 //! [`super::arith::factor_u64`]: trial division, deterministic Miller–Rabin, Pollard–Brent rho).
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 /// Every positive divisor of the number with factorisation `f` that is `≤ limit`, in no
 /// particular order.
 pub fn divisors_up_to(f: &[(u64, u32)], limit: u64, out: &mut Vec<u64>) {

@@ -40,6 +40,8 @@
 //! * `hash` — Σ `survivor_hash(k, c mod 2⁶⁴, z)` where `c = sgn(v)·⌊∛|v|⌋`, `v = k − 2z³`:
 //!   the cube root must be computed to produce it.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 use super::exact::icbrt_trunc_i128;
 use super::{survivor_hash, Progress};
 use crate::{Digest, Rect, Solution};

@@ -21,8 +21,18 @@
 //!   The few words' bits left over go to tiers 2 and 3, then to the exact test.
 //! * **short classes** (large `d`): `g(t) mod M1` by Horner for each `t`.
 //!
-//! Machine words (`u128`) carry the exact arithmetic while `u ≤ 2⁴¹`; beyond, each class's
-//! `g(0)` and each survivor's exact test use GMP. The sieve itself always runs on words.
+//! Machine words (`u128`) carry the exact test while `u ≤ 2⁴¹`; beyond, each survivor's exact
+//! test uses GMP. `g(0) mod M` of a class is computed in words for every `u` (from the
+//! definition while `u ≤ 2⁴¹`, else by exact 128-bit division or by expanding the cube around
+//! the root, see `g0_residues`). The sieve itself always runs on words.
+//!
+//! # Factoring the `d` axis
+//! The roots of `k` mod every `d` come from the bucketed segmented factor sieve of
+//! [`super::segsieve`] (each prime up to `√d` touches only the segments it hits; the roots
+//! mod the large cofactor of every `d` computed four at a time), or, for narrow ranges of huge
+//! `d`, from factoring each `d`. [`Path::Reference`] keeps the previous implementation (the
+//! classic table sieve of [`super::sieve`], `g(0)` in GMP beyond `2⁴¹`) for comparisons; both
+//! give the same digest.
 //!
 //! # The digest of a rectangle
 //! * `candidates`: pairs `(d, z)` of the region inside the rectangle with `z³ ≡ k (mod d)`.
@@ -40,6 +50,7 @@
 #![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
 
 use super::arith::{cube_wide, isqrt_u128};
+use super::segsieve::{self, SegScratch, SieveTable};
 use super::sieve::{for_each_d, PrimeTable, RootScratch};
 pub use super::survivor::survivor_hash;
 use super::survivor::{self, tables, tier1, tier2, tier3, Tables, M1, M2, M3};
@@ -113,6 +124,19 @@ pub(crate) struct Ctx<'a> {
     pub z_hi: u64,
     pub words: bool,
     pub t: &'a Tables,
+    /// the reference path ([`Path::Reference`]): `g(0)` from its definition
+    pub reference: bool,
+}
+
+/// Which implementation of the per-`d` work to run; both give the same digest (tested).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Path {
+    /// Bucketed segmented factor sieve ([`super::segsieve`]) and `g(0)` residues in words.
+    Fast,
+    /// The classic table sieve ([`super::sieve`]: every prime up to `√d` visited in every
+    /// segment) and `g(0)` in GMP beyond `2⁴¹`; kept as the reference for tests and the
+    /// benchmark.
+    Reference,
 }
 
 /// Accumulated results of a piece of work.
@@ -121,6 +145,9 @@ pub(crate) struct Acc {
     pub digest: Digest,
     pub solutions: Vec<Solution>,
 }
+
+/// Most `d` in one job of the bucketed sieve (bounds its memory).
+const JOB_D_MAX: u64 = 1 << 24;
 
 /// Classes shorter than this are tested one `t` at a time.
 pub const SIEVE_MIN_LEN: u64 = 256;
@@ -184,9 +211,95 @@ impl DivD {
     }
 }
 
-/// `g(0)` modulo `M1, M2, M3` for the class starting at `u₀` with sign `s`.
+/// `g(0)` modulo `M1, M2, M3` for the class `u ≡ res (mod d)` starting at `u₀`, sign `s`,
+/// in machine words for every `u₀ < 2⁶³` (no GMP).
+///
+/// Write `u₀ = res + d·q` (`0 ≤ res < d`, `res³ ≡ s·k mod d`). Expanding the cube,
+///
+/// ```text
+///     (u₀³ − s·k)/d = w₀ + 3·res²·q + 3·res·d·q² + d²·q³,   w₀ = (res³ − s·k)/d,
+///     g = 4·(u₀³ − s·k)/d − d²,
+/// ```
+///
+/// and `|w₀| < d² + |k| < 2¹²⁷` is found exactly from the low `128 + v` bits of
+/// `res³ − s·k` (`d = 2^v·d'`): shift out `2^v`, multiply by `d'⁻¹ mod 2¹²⁸`. The rest is
+/// arithmetic mod `M < 2²⁹`. Agrees with [`g0_residues_ref`] (tested).
+///
+/// When `g < 2¹²⁸` (so whenever `4u₀³ < 2¹²⁸·d`, e.g. the large-`d` classes up to `d ≈ 2⁶⁰`),
+/// `g` itself comes from the low bits of `4(u₀³ − s·k) − d³` in the same way, which is cheaper.
 #[inline]
-fn g0_residues(ctx: &Ctx, d: u64, dd: &DivD, s: i64, u0: u64) -> [u64; 3] {
+fn g0_residues(k: i64, d: u64, dd: &DivD, s: i64, res: u64, u0: u64) -> [u64; 3] {
+    debug_assert!(res < d.max(1) && u0 >= res && (u0 - res) % d == 0);
+    {
+        // N = 4(u₀³ − s·k) − d³ in 256 bits (u₀, d < 2⁶³)
+        let (ch, cl) = cube_wide(u0 as u128);
+        let (mut h, mut l) = ((ch << 2) | (cl >> 126), cl << 2);
+        let sk4 = 4 * s as i128 * k as i128;
+        if sk4 >= 0 {
+            let (x, b) = l.overflowing_sub(sk4 as u128);
+            l = x;
+            h = h.wrapping_sub(b as u128);
+        } else {
+            let (x, c) = l.overflowing_add(sk4.unsigned_abs());
+            l = x;
+            h = h.wrapping_add(c as u128);
+        }
+        let (dh, dl) = cube_wide(d as u128);
+        let (x, b) = l.overflowing_sub(dl);
+        l = x;
+        h = h.wrapping_sub(dh).wrapping_sub(b as u128);
+        // 0 ≤ N < d·2¹²⁸ ⟺ ⌊N/2¹²⁸⌋ < d: then g = N/d < 2¹²⁸ is exact mod 2¹²⁸
+        if h < d as u128 {
+            let shifted = if dd.v == 0 {
+                l
+            } else {
+                (l >> dd.v) | (h << (128 - dd.v))
+            };
+            let g = shifted.wrapping_mul(dd.inv);
+            return [mod_u128::<M1>(g), mod_u128::<M2>(g), mod_u128::<M3>(g)];
+        }
+    }
+    let (hi, lo) = cube_wide(res as u128);
+    let sk = s as i128 * k as i128;
+    let (lo2, hi2) = if sk >= 0 {
+        let (l, b) = lo.overflowing_sub(sk as u128);
+        (l, hi.wrapping_sub(b as u128))
+    } else {
+        let (l, c) = lo.overflowing_add(sk.unsigned_abs());
+        (l, hi.wrapping_add(c as u128))
+    };
+    let shifted = if dd.v == 0 {
+        lo2
+    } else {
+        (lo2 >> dd.v) | (hi2 << (128 - dd.v))
+    };
+    let w0 = shifted.wrapping_mul(dd.inv) as i128;
+    // q = (u₀ − res)/d exactly, through the same inverse (low 64 bits)
+    let q = ((u0 - res) >> dd.v).wrapping_mul(dd.inv as u64);
+    #[inline(always)]
+    fn one<const M: u64>(w0: i128, res: u64, d: u64, q: u64) -> u64 {
+        let wm = mod_u128::<M>(w0.unsigned_abs());
+        let wm = if w0 < 0 && wm != 0 { M - wm } else { wm };
+        let (rm, dm, qm) = (res % M, d % M, q % M);
+        let t1 = 3 * (rm * rm % M) % M * qm % M;
+        let q2 = qm * qm % M;
+        let t2 = 3 * (rm * dm % M) % M * q2 % M;
+        let d2 = dm * dm % M;
+        let t3 = d2 * (q2 * qm % M) % M;
+        let w = (wm + t1 + t2 + t3) % M;
+        (4 * w + M - d2) % M
+    }
+    [
+        one::<M1>(w0, res, d, q),
+        one::<M2>(w0, res, d, q),
+        one::<M3>(w0, res, d, q),
+    ]
+}
+
+/// `g(0)` modulo `M1, M2, M3` straight from the definition (`u128` while `u ≤ 2⁴¹`, else GMP):
+/// the reference for [`g0_residues`].
+#[cfg_attr(not(test), allow(dead_code))]
+fn g0_residues_ref(ctx: &Ctx, d: u64, dd: &DivD, s: i64, u0: u64) -> [u64; 3] {
     if ctx.words {
         let u = u0 as u128;
         let d3 = (d as u128) * (d as u128) * (d as u128);
@@ -275,21 +388,38 @@ pub fn exact_test(k: i64, d: u64, z: i64, words: bool) -> Option<Solution> {
 }
 
 /// One class `u = u₀ + d·t`, `t ∈ [0, n)`.
-fn scan_class(ctx: &Ctx, acc: &mut Acc, d: u64, dd: &DivD, s: i64, u0: u64, n: u64) {
-    let g0 = g0_residues(ctx, d, dd, s, u0);
-    let p1 = Poly::<M1>::new(g0[0], u0, d);
-    let p2 = Poly::<M2>::new(g0[1], u0, d);
-    let p3 = Poly::<M3>::new(g0[2], u0, d);
+#[allow(clippy::too_many_arguments)]
+fn scan_class(ctx: &Ctx, acc: &mut Acc, d: u64, dd: &DivD, s: i64, res: u64, u0: u64, n: u64) {
+    // in words (|z| ≤ 2⁴¹) the definition is cheapest; beyond, the expansion avoids GMP
+    let g0 = if ctx.reference || ctx.words {
+        g0_residues_ref(ctx, d, dd, s, u0)
+    } else {
+        g0_residues(ctx.k, d, dd, s, res, u0)
+    };
     let dpar = (d & 1) as usize;
     let t = ctx.t;
+    if n == 1 {
+        // the usual case for large d: g(0) itself
+        if tier1(t, g0[0], dpar) && tier2(t, g0[1]) && tier3(t, g0[2]) {
+            survivor(ctx, acc, d, s, u0);
+        }
+        return;
+    }
+    let p1 = Poly::<M1>::new(g0[0], u0, d);
     if n < 8 {
+        // tiers 2 and 3 only for the few that pass tier 1
         for i in 0..n {
-            if tier1(t, p1.eval(i), dpar) && tier2(t, p2.eval(i)) && tier3(t, p3.eval(i)) {
+            if tier1(t, p1.eval(i), dpar)
+                && tier2(t, Poly::<M2>::new(g0[1], u0, d).eval(i))
+                && tier3(t, Poly::<M3>::new(g0[2], u0, d).eval(i))
+            {
                 survivor(ctx, acc, d, s, u0 + d * i);
             }
         }
         return;
     }
+    let p2 = Poly::<M2>::new(g0[1], u0, d);
+    let p3 = Poly::<M3>::new(g0[2], u0, d);
     if n < SIEVE_MIN_LEN {
         // g(t) mod M1 by finite differences of the cubic (n < SIEVE_MIN_LEN < M1)
         let e = [p1.eval(0), p1.eval(1), p1.eval(2), p1.eval(3)];
@@ -437,8 +567,11 @@ impl Patterns {
 
 /// All classes of one `d` within `(z_lo', z_hi']` (the piece being scanned).
 fn scan_d(ctx: &Ctx, acc: &mut Acc, d: u64, roots: &[u64], count_only: bool) {
+    if roots.is_empty() {
+        return;
+    }
     let l = region_floor(ctx.z0, d);
-    if l >= ctx.z_hi || roots.is_empty() {
+    if l >= ctx.z_hi {
         return;
     }
     let lo = l.max(ctx.z_lo);
@@ -448,7 +581,11 @@ fn scan_d(ctx: &Ctx, acc: &mut Acc, d: u64, roots: &[u64], count_only: bool) {
     // least u > floor with u ≡ res (mod d), given floor + 1 and (floor + 1) mod d;
     // floor < 2⁶³ and res < d ≤ 2⁶³: no overflow
     let (la, lam) = (l + 1, (l + 1) % d);
-    let (lb, lbm) = (lo + 1, (lo + 1) % d);
+    let (lb, lbm) = if lo == l {
+        (la, lam)
+    } else {
+        (lo + 1, (lo + 1) % d)
+    };
     let up = |f1: u64, f1m: u64, res: u64| -> u64 {
         let delta = if res >= f1m { res - f1m } else { res + d - f1m };
         f1 + delta
@@ -465,10 +602,11 @@ fn scan_d(ctx: &Ctx, acc: &mut Acc, d: u64, roots: &[u64], count_only: bool) {
             if u0 > ctx.z_hi {
                 continue;
             }
-            let n = (ctx.z_hi - u0) / d + 1;
+            let rest = ctx.z_hi - u0;
+            let n = if rest < d { 1 } else { rest / d + 1 };
             acc.digest.candidates += n;
             if !count_only {
-                scan_class(ctx, acc, d, &dd, s, u0, n);
+                scan_class(ctx, acc, d, &dd, s, res, u0, n);
             }
         }
     }
@@ -491,13 +629,26 @@ fn approx_len(z0: u64, d: u64, z_lo: u64, z_hi: u64) -> f64 {
     ((z_hi as f64 - l).max(0.0) / d as f64) * 2.0
 }
 
-/// Split the rectangle into jobs of roughly `target` candidate-equivalents each.
-fn plan_jobs(z0: u64, rect: &Rect, d_end: u64, target: f64) -> Vec<Job> {
+/// Split the rectangle into jobs of roughly `target` candidate-equivalents each, and at least
+/// `min_n` (when there are that many), at most `max_n` values of `d` each. Counting only
+/// (`count_only`), a class costs the same however long it is, so only the `d` count.
+fn plan_jobs(
+    z0: u64,
+    rect: &Rect,
+    d_end: u64,
+    target: f64,
+    (min_n, max_n): (u64, u64),
+    count_only: bool,
+) -> Vec<Job> {
     const PER_D: f64 = 60.0; // per-d overhead in candidate-equivalents
     let mut jobs = Vec::new();
     let mut d = rect.d_lo;
     while d < d_end {
-        let per_d = approx_len(z0, d, rect.z_lo, rect.z_hi) + PER_D;
+        let per_d = if count_only {
+            PER_D
+        } else {
+            approx_len(z0, d, rect.z_lo, rect.z_hi) + PER_D
+        };
         if per_d >= target {
             // one d, split along |z|
             let lo = region_floor(z0, d).max(rect.z_lo);
@@ -517,7 +668,13 @@ fn plan_jobs(z0: u64, rect: &Rect, d_end: u64, target: f64) -> Vec<Job> {
             }
             d += 1;
         } else {
-            let n = ((target / per_d) as u64).clamp(1, 1 << 20).min(d_end - d);
+            // few candidates per d: the per-d work dominates, and long jobs amortise the
+            // factor sieve's set-up
+            let floor = if per_d <= 4.0 * PER_D { min_n } else { 1 };
+            let n = ((target / per_d) as u64)
+                .max(floor)
+                .clamp(1, max_n)
+                .min(d_end - d);
             jobs.push(Job {
                 d_lo: d,
                 d_hi: d + n,
@@ -530,7 +687,17 @@ fn plan_jobs(z0: u64, rect: &Rect, d_end: u64, target: f64) -> Vec<Job> {
     jobs
 }
 
-fn run_job(k: i64, z0: u64, job: &Job, table: Option<&PrimeTable>, count_only: bool) -> Acc {
+/// How a rectangle's `d` are factored.
+enum Factorer {
+    /// bucketed segmented sieve
+    Seg(SieveTable),
+    /// classic table sieve (reference path)
+    Table(PrimeTable),
+    /// Pollard–Brent on each `d` (narrow ranges of huge `d`)
+    PerD,
+}
+
+fn run_job(k: i64, z0: u64, job: &Job, fac: &Factorer, count_only: bool, path: Path) -> Acc {
     let ctx = Ctx {
         k,
         z0,
@@ -538,12 +705,34 @@ fn run_job(k: i64, z0: u64, job: &Job, table: Option<&PrimeTable>, count_only: b
         z_hi: job.z_hi,
         words: job.z_hi <= WORD_U_MAX,
         t: tables(),
+        reference: path == Path::Reference,
     };
     let mut acc = Acc::default();
-    let mut sc = RootScratch::default();
-    for_each_d(k, job.d_lo, job.d_hi, table, &mut sc, |d, roots| {
-        scan_d(&ctx, &mut acc, d, roots, count_only)
-    });
+    match fac {
+        Factorer::Seg(t) => {
+            thread_local! {
+                static SC: std::cell::RefCell<SegScratch> = std::cell::RefCell::new(SegScratch::default());
+            }
+            SC.with(|sc| {
+                let mut sc = sc.borrow_mut();
+                segsieve::for_each_d(t, job.d_lo, job.d_hi, &mut sc, |d, roots| {
+                    scan_d(&ctx, &mut acc, d, roots, count_only)
+                });
+            });
+        }
+        Factorer::Table(t) => {
+            let mut sc = RootScratch::default();
+            for_each_d(k, job.d_lo, job.d_hi, Some(t), &mut sc, |d, roots| {
+                scan_d(&ctx, &mut acc, d, roots, count_only)
+            });
+        }
+        Factorer::PerD => {
+            let mut sc = RootScratch::default();
+            for_each_d(k, job.d_lo, job.d_hi, None, &mut sc, |d, roots| {
+                scan_d(&ctx, &mut acc, d, roots, count_only)
+            });
+        }
+    }
     acc
 }
 
@@ -562,6 +751,7 @@ fn run(
     threads: usize,
     progress: &(dyn Fn(u64) + Sync),
     count_only: bool,
+    path: Path,
 ) -> ScanOutput {
     use rayon::prelude::*;
     let z0 = z0_of(k);
@@ -572,14 +762,38 @@ fn run(
             solutions: Vec::new(),
         };
     }
-    let table = PrimeTable::worth_sieving(rect.d_lo, d_end).then(|| PrimeTable::new(k, d_end));
+    let nthreads = if threads == 0 {
+        rayon::current_num_threads()
+    } else {
+        threads
+    }
+    .max(1) as u64;
+    let (fac, job_n) = match path {
+        Path::Fast if SieveTable::worth_sieving(rect.d_lo, d_end) => {
+            let t = SieveTable::new(k, d_end);
+            // each job generates the primes up to √d: make jobs long enough to amortise that
+            // (about 26 ns per prime against ~100 ns per d), but keep one per thread, and at
+            // most 2²⁴ d, which bounds the bucket entries of a job (about π(W) + W/4 for a
+            // width W < √d: about 50 MB at d ≈ 2⁶³)
+            let span = d_end - rect.d_lo;
+            let n = (8 * t.limit())
+                .min(JOB_D_MAX)
+                .min(span.div_ceil(nthreads))
+                .max(1 << 20);
+            (Factorer::Seg(t), (n, n))
+        }
+        Path::Reference if PrimeTable::worth_sieving(rect.d_lo, d_end) => {
+            (Factorer::Table(PrimeTable::new(k, d_end)), (1, 1 << 20))
+        }
+        _ => (Factorer::PerD, (1, 1 << 20)),
+    };
     let target = if count_only { 1e7 } else { 1e8 };
-    let jobs = plan_jobs(z0, rect, d_end, target);
+    let jobs = plan_jobs(z0, rect, d_end, target, job_n, count_only);
     let work = || {
         let accs: Vec<Acc> = jobs
             .par_iter()
             .map(|j| {
-                let a = run_job(k, z0, j, table.as_ref(), count_only);
+                let a = run_job(k, z0, j, &fac, count_only, path);
                 progress(a.digest.candidates);
                 a
             })
@@ -589,7 +803,7 @@ fn run(
     let accs = if threads == 1 {
         jobs.iter()
             .map(|j| {
-                let a = run_job(k, z0, j, table.as_ref(), count_only);
+                let a = run_job(k, z0, j, &fac, count_only, path);
                 progress(a.digest.candidates);
                 a
             })
@@ -622,14 +836,27 @@ pub fn scan_main(
     threads: usize,
     progress: &(dyn Fn(u64) + Sync),
 ) -> ScanOutput {
-    run(k, rect, threads, progress, false)
+    run(k, rect, threads, progress, false, Path::Fast)
+}
+
+/// [`scan_main`] on a chosen implementation ([`Path::Reference`] for comparisons); the same
+/// digest and solutions either way.
+#[doc(hidden)]
+pub fn scan_main_path(
+    k: i64,
+    rect: &Rect,
+    threads: usize,
+    progress: &(dyn Fn(u64) + Sync),
+    path: Path,
+) -> ScanOutput {
+    run(k, rect, threads, progress, false, path)
 }
 
 /// The candidates of a main-region rectangle, without sieving: the roots of every `d` and the
 /// length of every class. Equals `scan_main(..).digest.candidates`; also returns the other
 /// counts (`d_values`, `classes`) in the digest (survivors and hash are zero).
 pub fn digest_counts_main(k: i64, rect: &Rect) -> Digest {
-    run(k, rect, 0, &|_| {}, true).digest
+    run(k, rect, 0, &|_| {}, true, Path::Fast).digest
 }
 
 /// `candidates` of [`digest_counts_main`].
@@ -647,16 +874,24 @@ pub mod cost {
     pub const PER_CANDIDATE_SHORT: f64 = 2.9e-9;
     /// Building the patterns of one long class.
     pub const PER_LONG_CLASS: f64 = 0.8e-6;
-    /// Per class in machine words (`g(0)`, first member, class length).
-    pub const PER_CLASS: f64 = 40e-9;
-    /// Per class beyond machine words (`|z| > 2⁴¹`: `g(0)` in GMP).
-    pub const PER_CLASS_BIG: f64 = 0.6e-6;
-    /// Per `d` (sieving, factor stripping, roots of the large cofactor, CRT):
-    /// `PER_D_BASE + PER_D_PER_BIT · log₂ d`.
-    pub const PER_D_BASE: f64 = 25e-9;
-    pub const PER_D_PER_BIT: f64 = 7.5e-9;
-    /// Per sieving prime of the rectangle's prime table (built once per rectangle).
-    pub const PER_TABLE_PRIME: f64 = 0.3e-6;
+    /// Per class in machine words (`g(0)`, first member, class length), plus the root work
+    /// (cofactor root, CRT) that grows with the number of roots per `d`.
+    pub const PER_CLASS: f64 = 70e-9;
+    /// Per class beyond `|z| > 2⁴¹` (`g(0)` still in words, from the expansion of the cube;
+    /// was 0.6 µs with `g(0)` in GMP).
+    pub const PER_CLASS_BIG: f64 = 80e-9;
+    /// Per `d` (bucketed factor sieve, factor stripping, batched roots of the large cofactor,
+    /// CRT): `PER_D_BASE + PER_D_PER_BIT · log₂ d` (was 25 ns + 7.5 ns·log₂ d with the
+    /// classic table sieve: about 400 ns at `d ≈ 2·10¹⁵`, now about 115 ns; fitted with
+    /// `PER_CLASS` to the bench's `paths` figures for k = 114 at `d ≈ 10⁹, 2·10¹⁵` and the
+    /// per-d figures for k = 33 at `d ≈ 10⁸, 10¹⁰`, within about 20%).
+    pub const PER_D_BASE: f64 = 40e-9;
+    pub const PER_D_PER_BIT: f64 = 1.5e-9;
+    /// Per prime up to `√d`, per job: generating it and placing it in its bucket (each job of
+    /// about `max(2²⁰, min(8·√d, 2²⁴))` values of `d` does this once).
+    pub const PER_SIEVE_PRIME: f64 = 26e-9;
+    /// Per `d` factored on its own (Pollard–Brent; narrow ranges of huge `d`).
+    pub const PER_D_FACTORED: f64 = 28e-6;
 }
 
 /// Mean number of cube roots of `k` modulo `d`: `Σ_{d<D} ρ_k(d) ≈ c_k·D`, with
@@ -741,11 +976,13 @@ pub fn estimate_seconds_main(k: i64, rect: &Rect) -> f64 {
     let (a, b) = (exact_end as f64, d_end as f64);
     let pieces = 64;
     let ratio = (b / a).powf(1.0 / pieces as f64);
-    if PrimeTable::worth_sieving(rect.d_lo, d_end) {
+    if SieveTable::worth_sieving(rect.d_lo, d_end) {
         let lim = (b.sqrt()).max(2.0);
-        total += PER_TABLE_PRIME * lim / lim.ln().max(1.0);
+        let job = (8.0 * lim).min(JOB_D_MAX as f64).max(1_048_576.0);
+        let jobs = ((b - a) / job).ceil().max(1.0);
+        total += PER_SIEVE_PRIME * lim / lim.ln().max(1.0) * jobs;
     } else {
-        total += (b - a) * 20e-6; // Pollard–Brent on each d
+        total += (b - a) * PER_D_FACTORED;
     }
     let mut x = a;
     for _ in 0..pieces {
@@ -907,6 +1144,104 @@ mod tests {
             check_against_naive(k, &rect(1, 4, 10, 20_000));
             check_against_naive(k, &rect(2, 3, 100, 1_000_000));
         }
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(256))]
+        // source: g = (4(u³ − s·k) − d³)/d evaluated in GMP (g_big), reduced mod M1, M2, M3
+        #[test]
+        fn g0_residues_in_words_match_gmp(
+            k in prop_oneof![1i64..100, 1i64..=(1i64 << 40)],
+            d0 in prop_oneof![1u64..1000, 1u64..(1u64 << 40), 1u64..(1u64 << 62)],
+            qsel in 0u64..u64::MAX,
+            pick in 0usize..3,
+            neg in proptest::bool::ANY,
+        ) {
+            // the first d ≥ d0 with a cube root of k (most d have none)
+            let (d, roots) = (d0..d0 + 10_000)
+                .map(|d| (d, crate::kernel::arith::cube_roots_mod(k, d)))
+                .find(|(_, r)| !r.is_empty())
+                .expect("some d with roots");
+            let s: i64 = if neg { -1 } else { 1 };
+            let r = roots[pick % roots.len()];
+            let res = if s == 1 { r } else { (d - r) % d };
+            // small q: g < 2¹²⁸ for most d (the short path); any q: the expansion
+            let qmax = (i64::MAX as u64 - res) / d + 1;
+            let q = if qsel & 1 == 0 { (qsel >> 1) % qmax.min(8) } else { qsel % qmax };
+            let u0 = res + d * q;
+            let got = g0_residues(k, d, &DivD::new(d), s, res, u0);
+            let g = g_big(k, d, s, u0);
+            let want = [
+                g.mod_u(M1 as u32) as u64,
+                g.mod_u(M2 as u32) as u64,
+                g.mod_u(M3 as u32) as u64,
+            ];
+            prop_assert_eq!(got, want, "k={} d={} s={} u0={}", k, d, s, u0);
+        }
+    }
+
+    fn check_paths(k: i64, r: &Rect) {
+        let fast = scan_main_path(k, r, 1, &|_| {}, Path::Fast);
+        let reference = scan_main_path(k, r, 1, &|_| {}, Path::Reference);
+        assert_eq!(fast, reference, "k={k} {r}");
+        let counts = digest_counts_main(k, r);
+        assert_eq!(
+            (counts.candidates, counts.classes, counts.d_values),
+            (
+                fast.digest.candidates,
+                fast.digest.classes,
+                fast.digest.d_values
+            ),
+            "k={k} {r}"
+        );
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(16))]
+        // source: the reference path (classic table sieve, g(0) from its definition in u128
+        // or GMP), itself checked against brute force above
+        #[test]
+        fn fast_path_matches_reference_on_random_rects(
+            k in prop_oneof![Just(2i64), Just(33), Just(42), Just(114), 1i64..100_000],
+            scale in 0usize..4,
+            off in 0u64..1_000_000_000,
+            w in 1u64..60_000,
+            zspan in 1u64..40,
+        ) {
+            prop_assume!(k % 9 != 4 && k % 9 != 5);
+            // d near 10⁴, 10⁹, 2⁴⁰ and 2⁴⁶ (the last in release builds: primes up to 2²³)
+            let base = [10_000u64, 1_000_000_000, 1 << 40, 1 << 46][scale];
+            prop_assume!(scale < 3 || !cfg!(debug_assertions));
+            let d_lo = base + off % base;
+            let d_hi = d_lo + w.min(if scale == 0 { 5_000 } else { 60_000 });
+            // |z| from the region floor at d_lo to a few multiples of d above it
+            let z_lo = main_z_floor(d_lo);
+            let z_hi = (main_z_floor(d_hi) + zspan * d_hi / 4).min(i64::MAX as u64);
+            check_paths(k, &rect(d_lo, d_hi, z_lo, z_hi));
+        }
+    }
+
+    #[test]
+    fn fast_path_matches_reference_on_fixed_rects() {
+        // source: the reference path; wide d ranges so that the bucket sieve has many
+        // segments and primes with several multiples, small d with long classes
+        check_paths(114, &rect(1, 20_000, 5, 3_000_000));
+        check_paths(33, &rect(1_000_000, 1_400_000, 5, 40_000_000));
+        check_paths(
+            42,
+            &rect(3_000_000_000, 3_000_200_000, 11_600_000_000, 11_700_000_000),
+        );
+        // |z| beyond 2⁴¹ (GMP on the reference path, words on the fast path)
+        let d = 1u64 << 39;
+        check_paths(
+            114,
+            &rect(
+                d,
+                d + 70_000,
+                main_z_floor(d),
+                main_z_floor(d + 70_000) + 3 * d,
+            ),
+        );
     }
 
     #[test]

@@ -15,7 +15,8 @@
 //! does) and [`estimate_candidates`] (a cheap approximation of [`candidates`] for progress).
 //!
 //! Code map: [`small`] (S, by factoring), [`equal`] (E, brute force then convergents of ∛2),
-//! [`main_region`] with [`sieve`], [`survivor`] and [`arith`] (C, Booker's method), and the
+//! [`main_region`] with [`segsieve`] (its reference: [`sieve`]), [`survivor`] and [`arith`] (C,
+//! Booker's method), and the
 //! naive paths used by the tests, [`naive_se`] (S and E) and `naive` (C). Each region module
 //! documents the digest fields it produces. `scan` checks the rectangle, turns a negative
 //! `k` into a positive one, dispatches, and verifies every solution in GMP.
@@ -33,6 +34,7 @@ pub mod main_region;
 #[doc(hidden)]
 pub mod naive;
 pub mod naive_se;
+pub mod segsieve;
 pub mod sieve;
 pub mod small;
 pub mod survivor;

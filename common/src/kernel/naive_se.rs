@@ -7,6 +7,8 @@
 //! * equal: every `z` in the rectangle gets the cube test, also above `Z1`, so it checks the
 //!   Legendre argument; only the solutions are comparable (it visits more `z`).
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 use super::exact::{exact_sqrt_u128, icbrt_trunc_i128, icbrt_u128};
 use super::survivor_hash;
 use crate::{Digest, Rect, Solution};

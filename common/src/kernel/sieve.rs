@@ -12,6 +12,10 @@
 //!   cost more than the whole range): Pollard–Brent factoring of each `d`.
 //!
 //! Both produce exactly the same roots; the buffers are reused across `d`.
+//!
+//! The main region now factors with [`super::segsieve`] (buckets for the large primes, memory
+//! bounded by the piece rather than `√d`); this table sieve is its reference
+//! ([`super::main_region::Path::Reference`]) and the per-`d` factoring fallback.
 
 #![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
 

@@ -21,6 +21,8 @@
 //! * `hash` — Σ `survivor_hash(k, a, z)` over those divisors, mod 2⁶⁴. The divisors are
 //!   known only after factoring `k − z³`, so the hash cannot be produced without the work.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 use super::arith::factor_u64 as factor;
 use super::divisors::divisors_up_to;
 use super::exact::exact_sqrt_u128;
