@@ -37,7 +37,7 @@ fn chunks_logged(log: &str, lease: i64) -> Vec<usize> {
 /// A bound at which the main region of k = 3 is estimated at `secs` seconds on one core.
 fn bound_for(secs: f64) -> u64 {
     let mut b = 1000u64;
-    while b < 50_000_000 {
+    while b < 500_000_000 {
         let r = kernel::domain(3, b, Region::Main).unwrap();
         if kernel::estimate_seconds(3, &r) >= secs {
             break;
