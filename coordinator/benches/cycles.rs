@@ -28,6 +28,9 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 const K: i64 = 33;
+
+/// Honest piece digests and solutions of each unit, by the unit's `d`.
+type Answers = Arc<HashMap<u64, (Vec<Digest>, Vec<Solution>)>>;
 const UNITS: u64 = 6000;
 
 fn rect(d: u64) -> Rect {
@@ -41,7 +44,7 @@ fn rect(d: u64) -> Rect {
 }
 
 /// Honest piece digests and solutions of every unit's rectangle, by `d`.
-fn answers(cost_us: u64) -> Arc<HashMap<u64, (Vec<Digest>, Vec<Solution>)>> {
+fn answers(cost_us: u64) -> Answers {
     let mut m = HashMap::new();
     for d in 1..=UNITS {
         let r = rect(d);
@@ -154,13 +157,7 @@ fn pct(v: &mut [f64], p: f64) -> f64 {
     v[((v.len() as f64 - 1.0) * p).round() as usize]
 }
 
-async fn run(
-    workers: usize,
-    seconds: u64,
-    checks: bool,
-    cost_us: u64,
-    ans: Arc<HashMap<u64, (Vec<Digest>, Vec<Solution>)>>,
-) {
+async fn run(workers: usize, seconds: u64, checks: bool, cost_us: u64, ans: Answers) {
     let dir = tempfile::tempdir().unwrap();
     let store = Store::open(&dir.path().join("c.db"), true).await.unwrap();
     let key = sign::generate();

@@ -250,7 +250,7 @@ pub async fn audit(
     let rechecked = a.recheck(opts).await?;
 
     let mut f = a.findings;
-    f.sort_by(|x, y| y.severity.cmp(&x.severity));
+    f.sort_by_key(|x| std::cmp::Reverse(x.severity));
     let errors = f.iter().filter(|x| x.is_error()).count();
     Ok(AuditResult {
         ok: errors == 0,

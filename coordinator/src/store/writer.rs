@@ -15,8 +15,10 @@ type Deliver = Box<dyn FnOnce(Result<()>) + Send>;
 /// One queued operation: `run` executes it on the writer's connection and says whether it
 /// succeeded (keep its savepoint) or failed (roll it back), with its deliverer; `abort`
 /// answers it with an error when it cannot run at all.
+type RunOp = Box<dyn for<'c> FnOnce(&'c mut AnyConnection) -> BoxFut<'c, (bool, Deliver)> + Send>;
+
 struct Job {
-    run: Box<dyn for<'c> FnOnce(&'c mut AnyConnection) -> BoxFut<'c, (bool, Deliver)> + Send>,
+    run: RunOp,
     abort: Deliver,
 }
 
