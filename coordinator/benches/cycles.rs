@@ -38,8 +38,8 @@ fn rect(d: u64) -> Rect {
         region: Region::Main,
         d_lo: d,
         d_hi: d + 1,
-        z_lo: 10,
-        z_hi: 200,
+        z_lo: 4 * d + 10,
+        z_hi: 4 * d + 400,
     }
 }
 
@@ -52,7 +52,7 @@ fn answers(cost_us: u64) -> Answers {
             unit_id: 0,
             campaign: String::new(),
             k: K,
-            bound: 200,
+            bound: 30_000,
             kernel: KERNEL_VERSION.into(),
             rect: r,
             cost: cost_us,
@@ -183,7 +183,7 @@ async fn run(workers: usize, seconds: u64, checks: bool, cost_us: u64, ans: Answ
     let nc = NewCampaign {
         name: "bench".into(),
         kernel: KERNEL_VERSION.into(),
-        bound: 200,
+        bound: 30_000,
         unit_seconds: 1.0,
         recheck_share: config.recheck_share,
     };

@@ -437,13 +437,23 @@ pub fn check_shape(h: &Handed, c: &Claim) -> Result<(), Refusal> {
             ),
         ));
     }
-    let zero = |d: &Digest| (d.d_values, d.classes, d.candidates) == (0, 0, 0);
-    if zero(c.digest) {
+    Ok(())
+}
+
+/// Refuse a report that claims no work at all (no `d` value, class or candidate) on a unit
+/// the coordinator has shown to hold work (`shows_work`, from `kernel::shows_work`; an
+/// honest unit can hold none, e.g. one `d` with no cube root of `k`).
+pub fn check_work(
+    claimed: &Digest,
+    shows_work: impl FnOnce() -> bool,
+    unit_id: i64,
+) -> Result<(), Refusal> {
+    let zero = (claimed.d_values, claimed.classes, claimed.candidates) == (0, 0, 0);
+    if zero && shows_work() {
         return Err(Refusal::false_claim(
             "zero_work",
             format!(
-                "the report claims no work at all on unit {}, whose rectangle holds work",
-                u.unit_id
+                "the report claims no work at all on unit {unit_id}, whose rectangle holds work"
             ),
         ));
     }
@@ -754,6 +764,45 @@ mod tests {
         assert_eq!(e.code(), "counts_differ");
         assert!(e.counts_against());
         assert!(check_counts(Region::Main, &Digest::ZERO, Some(&derived)).is_err());
+        // Zero work: refused where the unit is shown to hold work, accepted where an honest
+        // scan finds none (k = 33, d = 19: the kernel, run here, visits nothing).
+        let empty = Rect {
+            region: Region::Main,
+            d_lo: 19,
+            d_hi: 20,
+            z_lo: 86,
+            z_hi: 486,
+        };
+        let honest = cubehunt_common::kernel::scan(33, &empty, 1, &|_| {})
+            .unwrap()
+            .digest;
+        assert_eq!(
+            (honest.d_values, honest.classes, honest.candidates),
+            (0, 0, 0),
+            "{honest}"
+        );
+        assert!(!cubehunt_common::kernel::shows_work(33, &empty));
+        assert!(check_work(
+            &honest,
+            || cubehunt_common::kernel::shows_work(33, &empty),
+            1
+        )
+        .is_ok());
+        let busy = Rect {
+            region: Region::Main,
+            d_lo: 1,
+            d_hi: 40,
+            z_lo: 200,
+            z_hi: 5000,
+        };
+        assert!(cubehunt_common::kernel::shows_work(33, &busy));
+        let e = check_work(
+            &Digest::ZERO,
+            || cubehunt_common::kernel::shows_work(33, &busy),
+            1,
+        )
+        .unwrap_err();
+        assert_eq!(e.code(), "zero_work");
         assert!(check_counts(Region::Main, &Digest { survivors: 51, ..d }, None).is_err());
         // Small region: survivors count exact tests, which can exceed the candidates
         // (k = 3, |z| ≤ 1 has 3 candidates and 5 survivors; the kernel, run here).

@@ -366,6 +366,37 @@ pub fn counts(k: i64, rect: &Rect) -> Option<Digest> {
     }
 }
 
+/// Whether the rectangle provably holds work (some `d` value, class or candidate), found
+/// cheaply: the closed forms of [`counts`] where they apply, otherwise the counts of the
+/// first few single values of `d` (each costs the roots of `k` modulo that `d`). `false`
+/// means "not shown", not "none": a main-region rectangle whose first [`WORK_PROBE_D`]
+/// values of `d` have no cube root of `k` is left to the spot checks.
+pub fn shows_work(k: i64, rect: &Rect) -> bool {
+    let busy = |d: &Digest| (d.d_values, d.classes, d.candidates) != (0, 0, 0);
+    if let Some(c) = counts(k, rect) {
+        return busy(&c);
+    }
+    if rect.region != Region::Main {
+        return false;
+    }
+    let ak = k.abs();
+    let last = rect.d_hi.min(rect.d_lo.saturating_add(WORK_PROBE_D));
+    (rect.d_lo..last).any(|d| {
+        let one = Rect {
+            d_lo: d,
+            d_hi: d + 1,
+            z_lo: rect.z_lo.max(main_z_floor(d)),
+            ..*rect
+        };
+        one.z_lo < one.z_hi
+            && check_rect(k, &one).is_ok()
+            && busy(&main_region::digest_counts_main(ak, &one))
+    })
+}
+
+/// See [`shows_work`].
+pub const WORK_PROBE_D: u64 = 64;
+
 /// See [`counts`]: a `d` costs about as much as 10⁴ sieved candidates (kernel cost model),
 /// so below this many candidates per `d` counting would cost more than about 1% of the scan.
 pub const COUNTS_MIN_CANDIDATES_PER_D: f64 = 1e6;

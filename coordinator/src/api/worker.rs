@@ -311,6 +311,13 @@ pub async fn report(
         ) {
             return false_claim(r);
         }
+        if let Err(r) = lifecycle::check_work(
+            &report.digest,
+            || kernel::shows_work(spec.k, &spec.rect),
+            spec.unit_id,
+        ) {
+            return false_claim(r);
+        }
         let derived = kernel::counts(spec.k, &spec.rect);
         if let Err(r) =
             lifecycle::check_counts(report.rect.region, &report.digest, derived.as_ref())
