@@ -999,6 +999,15 @@ async fn bad_input_is_refused_with_a_reason_and_changes_nothing() {
     let hb_body = br#"{"progress": 0.5}"#.to_vec();
     let (s, v) = e.send_stamped(&once, &a.key, &hb, hb_body.clone()).await;
     assert_eq!(s, StatusCode::OK, "{v}");
+    // Pages of the worker list: by id, `after` exclusive, `limit` at most.
+    let (s, v) = e.get("/api/v1/workers?limit=1").await;
+    assert_eq!((s, v.as_array().unwrap().len()), (StatusCode::OK, 1), "{v}");
+    assert_eq!(v[0]["id"], a.id);
+    let (_, v) = e.get(&format!("/api/v1/workers?after={}", a.id)).await;
+    assert_eq!(v.as_array().unwrap().len(), 1, "{v}");
+    assert_eq!(v[0]["id"], b.id);
+    let (_, v) = e.get(&format!("/api/v1/workers?after={}", b.id)).await;
+    assert_eq!(v, json!([]));
     let before = e.st.store.dump().await.unwrap();
     assert!(before
         .iter()
@@ -1122,6 +1131,30 @@ async fn bad_input_is_refused_with_a_reason_and_changes_nothing() {
             get("/api/v1/nothing"),
             S::NOT_FOUND,
             "no_route",
+        ),
+        (
+            "workers, limit zero",
+            get("/api/v1/workers?limit=0"),
+            S::BAD_REQUEST,
+            "bad_page",
+        ),
+        (
+            "workers, limit beyond the maximum",
+            get("/api/v1/workers?limit=1001"),
+            S::BAD_REQUEST,
+            "bad_page",
+        ),
+        (
+            "workers, after 1e800000000",
+            get("/api/v1/workers?after=1e800000000"),
+            S::BAD_REQUEST,
+            "bad_page",
+        ),
+        (
+            "workers, negative after",
+            get("/api/v1/workers?after=-1"),
+            S::BAD_REQUEST,
+            "bad_page",
         ),
         // Admin: tokens.
         (
