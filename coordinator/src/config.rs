@@ -100,6 +100,31 @@ pub struct ServiceConfig {
     /// Seconds a worker is told to wait when there is nothing to lease.
     #[arg(long, env = "CUBEHUNT_RETRY_AFTER_S", default_value_t = 30)]
     pub retry_after_s: u64,
+    /// Seconds a client has to send a request's headers once it starts one (or after the
+    /// previous response on a kept-alive connection); then the connection is closed.
+    #[arg(long, env = "CUBEHUNT_HEADER_TIMEOUT_S", default_value_t = 10, value_parser = clap::value_parser!(u64).range(1..=3600))]
+    pub header_timeout_s: u64,
+    /// Seconds a client has to send a request's body; a body that stalls longer is refused
+    /// (400) and nothing of it is used.
+    #[arg(long, env = "CUBEHUNT_BODY_TIMEOUT_S", default_value_t = 30, value_parser = clap::value_parser!(u64).range(1..=3600))]
+    pub body_timeout_s: u64,
+    /// Most open connections at once; further ones wait in the operating system's queue
+    /// until one closes.
+    #[arg(long, env = "CUBEHUNT_MAX_CONNECTIONS", default_value_t = 1024, value_parser = clap::value_parser!(u32).range(1..=1_000_000))]
+    pub max_connections: u32,
+    /// Most requests handled at once over all connections; beyond it a request is answered
+    /// 503 with Retry-After at once.
+    #[arg(long, env = "CUBEHUNT_MAX_IN_FLIGHT", default_value_t = 256, value_parser = clap::value_parser!(u32).range(1..=1_000_000))]
+    pub max_in_flight: u32,
+    /// Requests per second allowed from one client address, on average (0: no limit). The
+    /// count lives in this process's memory only. Behind a reverse proxy every client has the
+    /// proxy's address, so this is a limit on all clients together there.
+    #[arg(long, env = "CUBEHUNT_RATE_PER_S", default_value_t = 100)]
+    pub rate_per_s: u32,
+    /// Requests one client address may send in a burst above `rate_per_s` before being
+    /// answered 429 with Retry-After.
+    #[arg(long, env = "CUBEHUNT_RATE_BURST", default_value_t = 1000, value_parser = clap::value_parser!(u32).range(1..))]
+    pub rate_burst: u32,
 }
 
 fn parse_share(s: &str) -> Result<f64, String> {

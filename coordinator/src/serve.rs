@@ -5,7 +5,6 @@ use crate::config::ServiceConfig;
 use crate::datadir::DataDir;
 use crate::store::Store;
 use anyhow::{Context, Result};
-use std::net::SocketAddr;
 use std::time::Duration;
 
 pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()> {
@@ -46,14 +45,22 @@ pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()
     if checker.is_none() {
         tracing::warn!("checker_threads = 0: spot checks and rechecks wait for trusted workers, and so do certificates");
     }
-    let app = api::router(state.clone());
-    axum::serve(
-        listener,
-        app.into_make_service_with_connect_info::<SocketAddr>(),
-    )
-    .with_graceful_shutdown(shutdown_signal())
-    .await
-    .context("serving")?;
+    let (app, limiter) = api::app(state.clone());
+    let trimmer = limiter.map(|l| {
+        // The rate limiter keeps one entry per address seen; forget the idle ones.
+        tokio::spawn(async move {
+            let mut t = tokio::time::interval(Duration::from_secs(60));
+            loop {
+                t.tick().await;
+                l.retain_recent();
+                l.shrink_to_fit();
+            }
+        })
+    });
+    accept_loop(listener, app, &config, shutdown_signal()).await;
+    if let Some(t) = trimmer {
+        t.abort();
+    }
     sweeper.abort();
     if let Some(c) = checker {
         c.abort();
@@ -62,6 +69,77 @@ pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()
     let _ = std::fs::remove_file(dir.path(crate::datadir::URL_FILE));
     tracing::info!("coordinator stopped");
     Ok(())
+}
+
+/// Serve connections until `shutdown` completes, then stop accepting and wait for the open
+/// connections to finish their requests in flight (idle kept-alive ones are closed).
+///
+/// HTTP/1 only (workers, reverse proxies and browsers of the status page speak it), so every
+/// connection is under the header read timeout. At most `max_connections` are open at once:
+/// the loop accepts only when it holds a permit, so the excess waits in the kernel's queue.
+async fn accept_loop(
+    listener: tokio::net::TcpListener,
+    app: axum::Router,
+    config: &ServiceConfig,
+    shutdown: impl std::future::Future<Output = ()>,
+) {
+    use hyper_util::rt::{TokioExecutor, TokioIo, TokioTimer};
+    use hyper_util::server::conn::auto;
+    use tower::ServiceExt;
+
+    let mut builder = auto::Builder::new(TokioExecutor::new()).http1_only();
+    builder
+        .http1()
+        .timer(TokioTimer::new())
+        .header_read_timeout(Duration::from_secs(config.header_timeout_s))
+        .keep_alive(true);
+    let permits = std::sync::Arc::new(tokio::sync::Semaphore::new(config.max_connections as usize));
+    let graceful = hyper_util::server::graceful::GracefulShutdown::new();
+    tokio::pin!(shutdown);
+    loop {
+        let permit = tokio::select! {
+            p = permits.clone().acquire_owned() => p.expect("the semaphore is never closed"),
+            _ = &mut shutdown => break,
+        };
+        let (stream, peer) = tokio::select! {
+            r = listener.accept() => match r {
+                Ok(x) => x,
+                Err(e) => {
+                    // Out of file descriptors and the like: wait rather than spin.
+                    tracing::warn!(error = %e, "accept failed");
+                    tokio::time::sleep(Duration::from_millis(100)).await;
+                    continue;
+                }
+            },
+            _ = &mut shutdown => break,
+        };
+        let svc = app.clone().map_request(
+            move |mut req: axum::extract::Request<hyper::body::Incoming>| {
+                req.extensions_mut()
+                    .insert(axum::extract::ConnectInfo(peer));
+                req
+            },
+        );
+        let conn = builder
+            .serve_connection(
+                TokioIo::new(stream),
+                hyper_util::service::TowerToHyperService::new(svc),
+            )
+            .into_owned();
+        let conn = graceful.watch(conn);
+        tokio::spawn(async move {
+            if let Err(e) = conn.await {
+                tracing::debug!(%peer, error = %e, "connection closed with an error");
+            }
+            drop(permit);
+        });
+    }
+    drop(listener);
+    tracing::info!(
+        open = graceful.count(),
+        "no longer accepting; finishing requests in flight"
+    );
+    graceful.shutdown().await;
 }
 
 async fn shutdown_signal() {

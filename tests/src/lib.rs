@@ -437,11 +437,24 @@ impl Coordinator {
 
     /// `/api/v1/workers`, keyed by worker id.
     pub fn workers(&self) -> Result<Vec<Value>> {
-        Ok(self
-            .get("/api/v1/workers")?
-            .as_array()
-            .cloned()
-            .unwrap_or_default())
+        // One page at a time, as the status page reads them.
+        let mut all = Vec::new();
+        loop {
+            let after = all
+                .last()
+                .and_then(|w: &Value| w["id"].as_i64())
+                .unwrap_or(0);
+            let page = self
+                .get(&format!("/api/v1/workers?after={after}&limit=1000"))?
+                .as_array()
+                .cloned()
+                .unwrap_or_default();
+            let last = page.len() < 1000;
+            all.extend(page);
+            if last {
+                return Ok(all);
+            }
+        }
     }
 
     pub fn worker_view(&self, id: i64) -> Result<Value> {

@@ -953,3 +953,795 @@ async fn monitoring_metrics_and_openapi_agree_with_the_routes() {
         (StatusCode::NOT_FOUND, json!("no_route"))
     );
 }
+
+/// A POST signed as a worker signs it, for the bad-input table.
+fn signed_request(
+    stamp: &sign::Stamp,
+    key: &sign::SecretKey,
+    path: &str,
+    body: &[u8],
+) -> Request<Body> {
+    let sig = sign::sign(key, &sign::request_bytes(stamp, "POST", path, body));
+    Request::post(path)
+        .header("content-type", "application/json")
+        .header(HDR_WORKER, stamp.worker.to_string())
+        .header(HDR_TIME, stamp.time.to_string())
+        .header(HDR_NONCE, &stamp.nonce)
+        .header(HDR_SIGNATURE, sig)
+        .body(Body::from(body.to_vec()))
+        .unwrap()
+}
+
+fn admin_request(method: &str, path: &str, token: Option<&str>, body: &str) -> Request<Body> {
+    let mut b = Request::builder()
+        .method(method)
+        .uri(path)
+        .header("content-type", "application/json");
+    if let Some(t) = token {
+        b = b.header("authorization", format!("Bearer {t}"));
+    }
+    b.body(Body::from(body.to_string())).unwrap()
+}
+
+/// Every endpoint against malformed, mistyped, incomplete, oversized, absurd, unauthorised
+/// and replayed input: each is refused with the expected 4xx status and an `ApiError` whose
+/// code names the problem and whose message is not empty, and the store (every row of every
+/// table) is the same afterwards.
+#[tokio::test]
+async fn bad_input_is_refused_with_a_reason_and_changes_nothing() {
+    let e = env(plain()).await;
+    e.seed("c", 33, &[main_rect(1), main_rect(2)]).await;
+    let a = e.enrol("alice").await;
+    let b = e.enrol("bob").await;
+    let g = e.lease(&a).await.expect("a unit for alice");
+    let hb = format!("/api/v1/lease/{}/heartbeat", g.lease_id);
+    let rep = format!("/api/v1/lease/{}/report", g.lease_id);
+    let rel = format!("/api/v1/lease/{}/release", g.lease_id);
+    // A heartbeat that is accepted once, to be replayed below.
+    let once = e.stamp(a.id, crate::now());
+    let hb_body = br#"{"progress": 0.5}"#.to_vec();
+    let (s, v) = e.send_stamped(&once, &a.key, &hb, hb_body.clone()).await;
+    assert_eq!(s, StatusCode::OK, "{v}");
+    // Pages of the worker list: by id, `after` exclusive, `limit` at most.
+    let (s, v) = e.get("/api/v1/workers?limit=1").await;
+    assert_eq!((s, v.as_array().unwrap().len()), (StatusCode::OK, 1), "{v}");
+    assert_eq!(v[0]["id"], a.id);
+    let (_, v) = e.get(&format!("/api/v1/workers?after={}", a.id)).await;
+    assert_eq!(v.as_array().unwrap().len(), 1, "{v}");
+    assert_eq!(v[0]["id"], b.id);
+    let (_, v) = e.get(&format!("/api/v1/workers?after={}", b.id)).await;
+    assert_eq!(v, json!([]));
+    let before = e.st.store.dump().await.unwrap();
+    assert!(before
+        .iter()
+        .any(|(t, rows)| t == "leases" && rows.len() == 1));
+
+    let now = crate::now();
+    let sa =
+        |path: &str, body: &str| signed_request(&e.stamp(a.id, now), &a.key, path, body.as_bytes());
+    let sb =
+        |path: &str, body: &str| signed_request(&e.stamp(b.id, now), &b.key, path, body.as_bytes());
+    let new_key = sign::generate();
+    let new_pub = sign::public_to_hex(&new_key.verifying_key());
+    let enrol =
+        |body: String| signed_request(&e.stamp(0, now), &new_key, "/api/v1/enrol", body.as_bytes());
+    let enrol_ok = |extra: &str| {
+        format!(
+            r#"{{"owner": "carol", "public_key": "{new_pub}", "kernel": "{KERNEL_VERSION}", "threads": 2{extra}}}"#
+        )
+    };
+    let admin = |m: &str, p: &str, body: &str| admin_request(m, p, Some(TOKEN), body);
+    let create = |body: &str| admin("POST", "/api/v1/admin/campaigns", body);
+    let huge = "9".repeat(MAX_BODY_BYTES + 1);
+    let report_body = serde_json::to_string(&signed_report(&b, &g, 0, vec![])).unwrap();
+    let unsigned = |path: &str, body: &str| {
+        Request::post(path)
+            .header("content-type", "application/json")
+            .body(Body::from(body.to_string()))
+            .unwrap()
+    };
+    let bad_sig = {
+        let mut r = sa("/api/v1/lease", "{}");
+        r.headers_mut()
+            .insert(HDR_SIGNATURE, "00".repeat(64).parse().unwrap());
+        r
+    };
+    let get = |p: &str| Request::get(p).body(Body::empty()).unwrap();
+
+    use StatusCode as S;
+    let cases: Vec<(&str, Request<Body>, StatusCode, &str)> = vec![
+        // Read-only endpoints.
+        (
+            "unknown campaign",
+            get("/api/v1/campaigns/nope"),
+            S::NOT_FOUND,
+            "no_campaign",
+        ),
+        (
+            "unknown campaign's solutions",
+            get("/api/v1/campaigns/nope/solutions"),
+            S::NOT_FOUND,
+            "no_campaign",
+        ),
+        (
+            "certificate, k = 1e800000000",
+            get("/api/v1/campaigns/c/targets/1e800000000/certificate"),
+            S::BAD_REQUEST,
+            "bad_k",
+        ),
+        (
+            "certificate, k beyond 2^63",
+            get("/api/v1/campaigns/c/targets/9223372036854775808/certificate"),
+            S::BAD_REQUEST,
+            "bad_k",
+        ),
+        (
+            "certificate, k not a number",
+            get("/api/v1/campaigns/c/targets/abc/certificate"),
+            S::BAD_REQUEST,
+            "bad_k",
+        ),
+        (
+            "certificate, bound = 1e800000000",
+            get("/api/v1/campaigns/c/targets/33/certificate?bound=1e800000000"),
+            S::BAD_REQUEST,
+            "bad_bound",
+        ),
+        (
+            "certificate, negative bound",
+            get("/api/v1/campaigns/c/targets/33/certificate?bound=-5"),
+            S::BAD_REQUEST,
+            "bad_bound",
+        ),
+        (
+            "certificate, unknown format",
+            get("/api/v1/campaigns/c/targets/33/certificate?format=xml"),
+            S::BAD_REQUEST,
+            "bad_format",
+        ),
+        (
+            "certificate, unknown target",
+            get("/api/v1/campaigns/c/targets/42/certificate"),
+            S::NOT_FOUND,
+            "not_found",
+        ),
+        (
+            "certificate, incomplete target",
+            get("/api/v1/campaigns/c/targets/33/certificate"),
+            S::CONFLICT,
+            "target_incomplete",
+        ),
+        (
+            "export, unknown kind",
+            get("/api/v1/campaigns/c/export/everything"),
+            S::NOT_FOUND,
+            "not_found",
+        ),
+        (
+            "export, unknown format",
+            get("/api/v1/campaigns/c/export/ledger?format=xml"),
+            S::BAD_REQUEST,
+            "bad_format",
+        ),
+        (
+            "export, unknown campaign",
+            get("/api/v1/campaigns/nope/export/ledger"),
+            S::NOT_FOUND,
+            "not_found",
+        ),
+        (
+            "unknown route",
+            get("/api/v1/nothing"),
+            S::NOT_FOUND,
+            "no_route",
+        ),
+        (
+            "workers, limit zero",
+            get("/api/v1/workers?limit=0"),
+            S::BAD_REQUEST,
+            "bad_page",
+        ),
+        (
+            "workers, limit beyond the maximum",
+            get("/api/v1/workers?limit=1001"),
+            S::BAD_REQUEST,
+            "bad_page",
+        ),
+        (
+            "workers, after 1e800000000",
+            get("/api/v1/workers?after=1e800000000"),
+            S::BAD_REQUEST,
+            "bad_page",
+        ),
+        (
+            "workers, negative after",
+            get("/api/v1/workers?after=-1"),
+            S::BAD_REQUEST,
+            "bad_page",
+        ),
+        // Admin: tokens.
+        (
+            "admin, no token",
+            admin_request(
+                "POST",
+                "/api/v1/admin/campaigns",
+                None,
+                r#"{"name": "d", "ks": [33], "bound": 10}"#,
+            ),
+            S::UNAUTHORIZED,
+            "admin_token_missing",
+        ),
+        (
+            "admin, wrong token",
+            admin_request(
+                "POST",
+                "/api/v1/admin/campaigns",
+                Some(&TOKEN[1..]),
+                r#"{"name": "d", "ks": [33], "bound": 10}"#,
+            ),
+            S::UNAUTHORIZED,
+            "admin_token_wrong",
+        ),
+        (
+            "admin, not a bearer token",
+            admin_request("POST", "/api/v1/admin/campaigns/c/pause", None, "").map(|b| b),
+            S::UNAUTHORIZED,
+            "admin_token_missing",
+        ),
+        (
+            "admin pause, wrong token",
+            admin_request("POST", "/api/v1/admin/campaigns/c/pause", Some("x"), ""),
+            S::UNAUTHORIZED,
+            "admin_token_wrong",
+        ),
+        (
+            "admin quarantine, no token",
+            admin_request(
+                "POST",
+                &format!("/api/v1/admin/workers/{}/quarantine", a.id),
+                None,
+                "",
+            ),
+            S::UNAUTHORIZED,
+            "admin_token_missing",
+        ),
+        (
+            "admin invite, wrong token",
+            admin_request(
+                "POST",
+                "/api/v1/admin/invites",
+                Some("x"),
+                r#"{"owner": "dan"}"#,
+            ),
+            S::UNAUTHORIZED,
+            "admin_token_wrong",
+        ),
+        // Admin: bodies.
+        (
+            "create, malformed JSON",
+            create(r#"{"name": "d", "ks": [33"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "create, not an object",
+            create("[1, 2]"),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "create, name of the wrong type",
+            create(r#"{"name": 5, "ks": [33], "bound": 10}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "create, missing bound",
+            create(r#"{"name": "d", "ks": [33]}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "create, unknown field",
+            create(r#"{"name": "d", "ks": [33], "bound": 10, "colour": "red"}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "create, bad name",
+            create(r#"{"name": "a b", "ks": [33], "bound": 10}"#),
+            S::BAD_REQUEST,
+            "bad_name",
+        ),
+        (
+            "create, negative bound",
+            create(r#"{"name": "d", "ks": [33], "bound": -5}"#),
+            S::BAD_REQUEST,
+            "bad_bound",
+        ),
+        (
+            "create, zero bound",
+            create(r#"{"name": "d", "ks": [33], "bound": 0}"#),
+            S::BAD_REQUEST,
+            "bad_bound",
+        ),
+        (
+            "create, bound beyond 2^64",
+            create(r#"{"name": "d", "ks": [33], "bound": 18446744073709551617}"#),
+            S::BAD_REQUEST,
+            "bad_bound",
+        ),
+        (
+            "create, bound 1e800000000 as a number",
+            create(r#"{"name": "d", "ks": [33], "bound": 1e800000000}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "create, bound 1e800000000 as a string",
+            create(r#"{"name": "d", "ks": [33], "bound": "1e800000000"}"#),
+            S::BAD_REQUEST,
+            "bad_bound",
+        ),
+        (
+            "create, bound beyond the kernel's range",
+            create(r#"{"name": "d", "ks": [33], "bound": "1e19"}"#),
+            S::BAD_REQUEST,
+            "bad_bound",
+        ),
+        (
+            "create, k beyond 2^63",
+            create(r#"{"name": "d", "ks": [9223372036854775808], "bound": 10}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "create, k list 1e800000000",
+            create(r#"{"name": "d", "ks": "1e800000000", "bound": 10}"#),
+            S::BAD_REQUEST,
+            "bad_target",
+        ),
+        (
+            "create, k = 4 (mod 9)",
+            create(r#"{"name": "d", "ks": [4], "bound": 10}"#),
+            S::BAD_REQUEST,
+            "bad_target",
+        ),
+        (
+            "create, k twice",
+            create(r#"{"name": "d", "ks": [33, 33], "bound": 10}"#),
+            S::BAD_REQUEST,
+            "bad_target",
+        ),
+        (
+            "create, no targets",
+            create(r#"{"name": "d", "ks": [], "bound": 10}"#),
+            S::BAD_REQUEST,
+            "bad_target",
+        ),
+        (
+            "create, negative unit seconds",
+            create(r#"{"name": "d", "ks": [33], "bound": 10, "unit_seconds": -1}"#),
+            S::BAD_REQUEST,
+            "bad_unit_seconds",
+        ),
+        (
+            "create, zero unit seconds",
+            create(r#"{"name": "d", "ks": [33], "bound": 10, "unit_seconds": 0}"#),
+            S::BAD_REQUEST,
+            "bad_unit_seconds",
+        ),
+        (
+            "create, existing name",
+            create(r#"{"name": "c", "ks": [33], "bound": 10}"#),
+            S::CONFLICT,
+            "campaign_exists",
+        ),
+        (
+            "create, oversize body",
+            create(&huge),
+            S::PAYLOAD_TOO_LARGE,
+            "body_too_large",
+        ),
+        (
+            "action on an unknown campaign",
+            admin("POST", "/api/v1/admin/campaigns/nope/pause", ""),
+            S::NOT_FOUND,
+            "no_campaign",
+        ),
+        (
+            "unknown action",
+            admin("POST", "/api/v1/admin/campaigns/c/explode", ""),
+            S::NOT_FOUND,
+            "no_action",
+        ),
+        (
+            "extend, malformed",
+            admin("POST", "/api/v1/admin/campaigns/c/extend", "{"),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "extend, smaller bound",
+            admin(
+                "POST",
+                "/api/v1/admin/campaigns/c/extend",
+                r#"{"bound": 5}"#,
+            ),
+            S::CONFLICT,
+            "bound_not_larger",
+        ),
+        (
+            "extend, bound 1e800000000",
+            admin(
+                "POST",
+                "/api/v1/admin/campaigns/c/extend",
+                r#"{"bound": "1e800000000"}"#,
+            ),
+            S::BAD_REQUEST,
+            "bad_bound",
+        ),
+        (
+            "worker action, bad id",
+            admin("POST", "/api/v1/admin/workers/abc/trust", ""),
+            S::BAD_REQUEST,
+            "bad_worker_id",
+        ),
+        (
+            "worker action, id beyond 2^63",
+            admin(
+                "POST",
+                "/api/v1/admin/workers/9223372036854775808/trust",
+                "",
+            ),
+            S::BAD_REQUEST,
+            "bad_worker_id",
+        ),
+        (
+            "worker action, unknown worker",
+            admin("POST", "/api/v1/admin/workers/999/trust", ""),
+            S::NOT_FOUND,
+            "not_found",
+        ),
+        (
+            "worker action, unknown action",
+            admin(
+                "POST",
+                &format!("/api/v1/admin/workers/{}/promote", a.id),
+                "",
+            ),
+            S::NOT_FOUND,
+            "no_action",
+        ),
+        (
+            "worker action, unknown field",
+            admin(
+                "POST",
+                &format!("/api/v1/admin/workers/{}/quarantine", a.id),
+                r#"{"why": "x"}"#,
+            ),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "invite, malformed",
+            admin("POST", "/api/v1/admin/invites", "{"),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "invite, bad owner",
+            admin("POST", "/api/v1/admin/invites", r#"{"owner": "a/b"}"#),
+            S::BAD_REQUEST,
+            "bad_owner",
+        ),
+        // Enrolment.
+        (
+            "enrol, unsigned",
+            unsigned("/api/v1/enrol", &enrol_ok("")),
+            S::UNAUTHORIZED,
+            "unsigned",
+        ),
+        (
+            "enrol, malformed",
+            enrol("{\"owner\":".into()),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "enrol, missing key",
+            enrol(format!(
+                r#"{{"owner": "carol", "kernel": "{KERNEL_VERSION}", "threads": 2}}"#
+            )),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "enrol, unknown field",
+            enrol(enrol_ok(r#", "admin": true"#)),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "enrol, negative threads",
+            enrol(enrol_ok("").replace("\"threads\": 2", "\"threads\": -2")),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "enrol, threads 1e800000000",
+            enrol(enrol_ok("").replace("\"threads\": 2", "\"threads\": 1e800000000")),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "enrol, threads beyond the limit",
+            enrol(enrol_ok("").replace("\"threads\": 2", "\"threads\": 5000")),
+            S::BAD_REQUEST,
+            "bad_enrolment",
+        ),
+        (
+            "enrol, bad owner",
+            enrol(enrol_ok("").replace("carol", "car ol")),
+            S::BAD_REQUEST,
+            "bad_owner",
+        ),
+        (
+            "enrol, long label",
+            enrol(enrol_ok(&format!(r#", "label": "{}""#, "x".repeat(65)))),
+            S::BAD_REQUEST,
+            "bad_enrolment",
+        ),
+        (
+            "enrol, key not hex",
+            enrol(enrol_ok("").replace(&new_pub, "zz")),
+            S::BAD_REQUEST,
+            "bad_key",
+        ),
+        (
+            "enrol, signed by another key",
+            signed_request(
+                &e.stamp(0, now),
+                &a.key,
+                "/api/v1/enrol",
+                enrol_ok("").as_bytes(),
+            ),
+            S::UNAUTHORIZED,
+            "bad_signature",
+        ),
+        (
+            "enrol, with a worker id",
+            signed_request(
+                &e.stamp(a.id, now),
+                &new_key,
+                "/api/v1/enrol",
+                enrol_ok("").as_bytes(),
+            ),
+            S::BAD_REQUEST,
+            "bad_enrolment",
+        ),
+        (
+            "enrol, oversize body",
+            enrol(huge.clone()),
+            S::PAYLOAD_TOO_LARGE,
+            "body_too_large",
+        ),
+        // Signed worker requests: signatures and clocks.
+        (
+            "lease, unsigned",
+            unsigned("/api/v1/lease", "{}"),
+            S::UNAUTHORIZED,
+            "unsigned",
+        ),
+        (
+            "lease, wrong signature",
+            bad_sig,
+            S::UNAUTHORIZED,
+            "bad_signature",
+        ),
+        (
+            "lease, signed by another worker's key",
+            signed_request(&e.stamp(a.id, now), &b.key, "/api/v1/lease", b"{}"),
+            S::UNAUTHORIZED,
+            "bad_signature",
+        ),
+        (
+            "lease, an hour old",
+            signed_request(&e.stamp(a.id, now - 3600), &a.key, "/api/v1/lease", b"{}"),
+            S::UNAUTHORIZED,
+            "clock_skew",
+        ),
+        (
+            "lease, unknown worker",
+            signed_request(&e.stamp(999, now), &a.key, "/api/v1/lease", b"{}"),
+            S::UNAUTHORIZED,
+            "unknown_worker",
+        ),
+        (
+            "lease, worker id beyond 2^63",
+            signed_request(
+                &sign::Stamp {
+                    worker: -1,
+                    ..e.stamp(a.id, now)
+                },
+                &a.key,
+                "/api/v1/lease",
+                b"{}",
+            ),
+            S::UNAUTHORIZED,
+            "unsigned",
+        ),
+        (
+            "lease, malformed",
+            sa("/api/v1/lease", "{\"threads\""),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "lease, unknown field",
+            sa("/api/v1/lease", r#"{"threads": 1, "unit": 1}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "lease, threads of the wrong type",
+            sa("/api/v1/lease", r#"{"threads": "many"}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "lease, negative threads",
+            sa("/api/v1/lease", r#"{"threads": -1}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "lease, oversize body",
+            sa("/api/v1/lease", &huge),
+            S::PAYLOAD_TOO_LARGE,
+            "body_too_large",
+        ),
+        // Leases by id.
+        (
+            "heartbeat, replayed",
+            signed_request(&once, &a.key, &hb, &hb_body),
+            S::CONFLICT,
+            "replayed",
+        ),
+        (
+            "heartbeat, lease id not a number",
+            sa("/api/v1/lease/abc/heartbeat", ""),
+            S::BAD_REQUEST,
+            "bad_lease_id",
+        ),
+        (
+            "heartbeat, lease id zero",
+            sa("/api/v1/lease/0/heartbeat", ""),
+            S::BAD_REQUEST,
+            "bad_lease_id",
+        ),
+        (
+            "heartbeat, lease id beyond 2^63",
+            sa("/api/v1/lease/9223372036854775808/heartbeat", ""),
+            S::BAD_REQUEST,
+            "bad_lease_id",
+        ),
+        (
+            "heartbeat, unknown lease",
+            sa("/api/v1/lease/999/heartbeat", ""),
+            S::NOT_FOUND,
+            "not_found",
+        ),
+        (
+            "heartbeat, another worker's lease",
+            sb(&hb, ""),
+            S::FORBIDDEN,
+            "not_your_lease",
+        ),
+        (
+            "heartbeat, progress of the wrong type",
+            sa(&hb, r#"{"progress": "half"}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "heartbeat, progress beyond 1",
+            sa(&hb, r#"{"progress": 5}"#),
+            S::BAD_REQUEST,
+            "bad_progress",
+        ),
+        (
+            "heartbeat, negative progress",
+            sa(&hb, r#"{"progress": -0.5}"#),
+            S::BAD_REQUEST,
+            "bad_progress",
+        ),
+        (
+            "heartbeat, progress 1e800000000",
+            sa(&hb, r#"{"progress": 1e800000000}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "heartbeat, unknown field",
+            sa(&hb, r#"{"progress": 0.5, "deadline": 1}"#),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "release, another worker's lease",
+            sb(&rel, ""),
+            S::FORBIDDEN,
+            "not_your_lease",
+        ),
+        (
+            "release, not an object",
+            sa(&rel, "[]"),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "report, another worker's lease",
+            sb(&rep, &report_body),
+            S::FORBIDDEN,
+            "not_your_lease",
+        ),
+        (
+            "report, unknown lease",
+            sa("/api/v1/lease/999/report", &report_body),
+            S::NOT_FOUND,
+            "no_lease",
+        ),
+        (
+            "report, malformed",
+            sa(&rep, "{\"report\": {"),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        ("report, empty", sa(&rep, ""), S::BAD_REQUEST, "bad_json"),
+        (
+            "report, missing signature",
+            sa(&rep, &{
+                let mut v: Value = serde_json::from_str(&report_body).unwrap();
+                v.as_object_mut().unwrap().remove("signature");
+                v.to_string()
+            }),
+            S::BAD_REQUEST,
+            "bad_json",
+        ),
+        (
+            "report, oversize body",
+            sa(&rep, &huge),
+            S::PAYLOAD_TOO_LARGE,
+            "body_too_large",
+        ),
+    ];
+    let mut wrong = Vec::new();
+    for (what, req, status, code) in cases {
+        let line = format!("{} {}", req.method(), req.uri());
+        let t = std::time::Instant::now();
+        let (s, v) = e.call(req).await;
+        let ms = t.elapsed().as_secs_f64() * 1e3;
+        if what.contains("1e800000000") {
+            eprintln!("{what}: answered {} in {ms:.2} ms", s.as_u16());
+            assert!(ms < 1000.0, "{what} took {ms} ms");
+        }
+        let msg = v["message"].as_str().unwrap_or("");
+        if s != status || v["error"] != code || msg.len() < 10 {
+            wrong.push(format!(
+                "{what} ({line}): want {status} {code}, got {s} {v}"
+            ));
+        }
+    }
+    assert!(
+        wrong.is_empty(),
+        "{} wrong answers:\n{}",
+        wrong.len(),
+        wrong.join("\n")
+    );
+    let after = e.st.store.dump().await.unwrap();
+    for ((t, r0), (_, r1)) in before.iter().zip(&after) {
+        assert_eq!(r0, r1, "table {t} changed");
+    }
+    assert_eq!(before, after);
+}

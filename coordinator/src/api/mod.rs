@@ -6,11 +6,13 @@
 //! * [`records`] — coverage certificates and exports (read-only).
 //! * [`openapi`] — the OpenAPI document of all of the above.
 //! * [`auth`] — admin token and worker signature checks.
+//! * [`limits`] — timeouts, rate and concurrency limits against hostile clients.
 //! * [`error`] — [`AppError`]: every failure's HTTP status and `ApiError` body.
 
 pub mod admin;
 pub mod auth;
 pub mod error;
+pub mod limits;
 pub mod monitor;
 pub mod openapi;
 pub mod records;
@@ -67,8 +69,22 @@ impl AppState {
     }
 }
 
-/// All routes. Bodies are limited to [`MAX_BODY_BYTES`].
+/// All routes with request logging. Bodies are limited to [`MAX_BODY_BYTES`].
 pub fn router(state: Shared) -> Router {
+    routes(state).layer(middleware::from_fn(log_request))
+}
+
+/// The service as `serve` runs it: [`router`] behind the limits against hostile clients
+/// (see [`ServiceConfig`]): a body read timeout, a per-address rate limit and a global limit
+/// of requests in flight. Each refusal is an `ApiError` body naming the limit. Returns the
+/// rate limiter too, whose memory `serve` trims now and then.
+pub fn app(state: Shared) -> (Router, Option<limits::Limiter>) {
+    let config = state.config.clone();
+    let (limited, limiter) = limits::apply(routes(state), &config);
+    (limited.layer(middleware::from_fn(log_request)), limiter)
+}
+
+fn routes(state: Shared) -> Router {
     Router::new()
         .route("/", get(monitor::status_page))
         .route("/healthz", get(monitor::healthz))
@@ -115,7 +131,6 @@ pub fn router(state: Shared) -> Router {
         )
         .fallback(monitor::not_found)
         .layer(DefaultBodyLimit::max(MAX_BODY_BYTES))
-        .layer(middleware::from_fn(log_request))
         .with_state(state)
 }
 

@@ -181,8 +181,43 @@ pub async fn solutions(
     Ok(Json(st.store.campaign_solutions(c.id).await?))
 }
 
-pub async fn workers(State(st): State<Shared>) -> ApiResult<Json<Vec<WorkerView>>> {
-    Ok(Json(st.store.workers().await?))
+/// Workers listed by one `GET /api/v1/workers` when no `limit` is given, and at most.
+pub const WORKERS_PAGE_DEFAULT: i64 = 500;
+pub const WORKERS_PAGE_MAX: i64 = 1000;
+
+#[derive(Debug, Default, serde::Deserialize)]
+pub struct WorkersQuery {
+    pub after: Option<String>,
+    pub limit: Option<String>,
+}
+
+/// `GET /api/v1/workers[?after=ID][&limit=N]`: the enrolled workers with ids above `after`
+/// (default 0), by id, at most `limit` of them (default [`WORKERS_PAGE_DEFAULT`], at most
+/// [`WORKERS_PAGE_MAX`]). A page shorter than `limit` is the last one; the next page is the
+/// one after the last id shown.
+pub async fn workers(
+    State(st): State<Shared>,
+    axum::extract::Query(q): axum::extract::Query<WorkersQuery>,
+) -> ApiResult<Json<Vec<WorkerView>>> {
+    let num = |what: &str, v: &Option<String>, default: i64, lo: i64, hi: i64| -> ApiResult<i64> {
+        let Some(v) = v else { return Ok(default) };
+        v.trim()
+            .parse::<i64>()
+            .ok()
+            .filter(|n| (lo..=hi).contains(n))
+            .ok_or_else(|| {
+                AppError::bad_request(
+                    "bad_page",
+                    format!(
+                        "{what} {:?} is not an integer from {lo} to {hi}",
+                        v.chars().take(24).collect::<String>()
+                    ),
+                )
+            })
+    };
+    let after = num("after", &q.after, 0, 0, i64::MAX)?;
+    let limit = num("limit", &q.limit, WORKERS_PAGE_DEFAULT, 1, WORKERS_PAGE_MAX)?;
+    Ok(Json(st.store.workers_page(after, limit).await?))
 }
 
 pub async fn healthz(State(st): State<Shared>) -> ApiResult<Json<serde_json::Value>> {

@@ -140,7 +140,11 @@ pub fn spec() -> Value {
             "responses": with_errors(ok(r("Campaign")), &["404"])}},
         "/api/v1/campaigns/{name}/solutions": {"get": {"summary": "Settled solutions with the unit that found them", "parameters": [name_param()],
             "responses": with_errors(ok(json!({"type": "array", "items": r("SolutionRecord")})), &["404"])}},
-        "/api/v1/workers": {"get": {"summary": "Enrolled workers", "responses": {"200": ok(json!({"type": "array", "items": r("Worker")}))}}},
+        "/api/v1/workers": {"get": {"summary": "Enrolled workers by id, one page: those with ids above `after`, at most `limit` (default 500, at most 1000); a shorter page is the last",
+            "parameters": [
+                {"name": "after", "in": "query", "required": false, "schema": {"type": "integer", "minimum": 0}},
+                {"name": "limit", "in": "query", "required": false, "schema": {"type": "integer", "minimum": 1, "maximum": 1000}}],
+            "responses": with_errors(ok(json!({"type": "array", "items": r("Worker")})), &["400"])}},
         "/api/v1/about": {"get": {"summary": "The coordinator's public key, kernel version and enrolment mode (fetch and pin the key before enrolling)",
             "responses": {"200": ok(r("About"))}}},
         "/api/v1/admin/invites": {

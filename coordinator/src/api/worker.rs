@@ -183,6 +183,12 @@ pub async fn heartbeat(
     } else {
         parse_json(&body, "heartbeat")?
     };
+    if !(0.0..=1.0).contains(&req.progress) {
+        return Err(AppError::bad_request(
+            "bad_progress",
+            format!("progress {} is not between 0 and 1", req.progress),
+        ));
+    }
     let out = st
         .store
         .heartbeat(&call, id, req.progress, &st.policy)

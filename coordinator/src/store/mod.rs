@@ -159,6 +159,52 @@ impl Store {
     }
 
     /// The connection pool, for reads inside the store module tree.
+    /// Every row of every table (SQLite), as text, tables by name and rows in rowid order:
+    /// what the bad-input tests compare before and after. (sqlx's own table of applied
+    /// migrations is left out: the `Any` driver cannot decode its time column.)
+    #[cfg(test)]
+    pub async fn dump(&self) -> Result<Vec<(String, Vec<String>)>> {
+        use sqlx::Row;
+        let names: Vec<String> =
+            sqlx::query("SELECT name FROM sqlite_master WHERE type = 'table' ORDER BY name")
+                .fetch_all(self.pool())
+                .await?
+                .iter()
+                .map(|r| r.get::<String, _>(0))
+                .filter(|t| !t.starts_with("_sqlx"))
+                .collect();
+        let mut out = Vec::new();
+        for t in names {
+            let rows = sqlx::query(&format!("SELECT * FROM \"{t}\" ORDER BY rowid"))
+                .fetch_all(self.pool())
+                .await?;
+            let text = rows
+                .iter()
+                .map(|r| {
+                    (0..r.len())
+                        .map(|i| {
+                            r.try_get::<Option<i64>, _>(i)
+                                .map(|v| format!("{v:?}"))
+                                .or_else(|_| {
+                                    r.try_get::<Option<f64>, _>(i).map(|v| format!("{v:?}"))
+                                })
+                                .or_else(|_| {
+                                    r.try_get::<Option<String>, _>(i).map(|v| format!("{v:?}"))
+                                })
+                                .or_else(|_| {
+                                    r.try_get::<Option<Vec<u8>>, _>(i).map(|v| format!("{v:?}"))
+                                })
+                                .unwrap_or_else(|e| format!("<{e}>"))
+                        })
+                        .collect::<Vec<_>>()
+                        .join(" | ")
+                })
+                .collect();
+            out.push((t, text));
+        }
+        Ok(out)
+    }
+
     pub(crate) fn pool(&self) -> &AnyPool {
         &self.pool
     }

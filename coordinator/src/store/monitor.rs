@@ -164,7 +164,14 @@ impl Store {
     }
 
     pub async fn workers(&self) -> Result<Vec<WorkerView>> {
-        let rows = sqlx::query("SELECT * FROM workers ORDER BY id")
+        self.workers_page(0, i64::MAX).await
+    }
+
+    /// At most `limit` workers with ids above `after`, by id.
+    pub async fn workers_page(&self, after: i64, limit: i64) -> Result<Vec<WorkerView>> {
+        let rows = sqlx::query("SELECT * FROM workers WHERE id > $1 ORDER BY id LIMIT $2")
+            .bind(after)
+            .bind(limit)
             .fetch_all(self.pool())
             .await?;
         let mut v = Vec::new();
