@@ -8,12 +8,14 @@
 //! * [`protocol`] — the JSON bodies exchanged between worker and coordinator.
 //! * [`tiling`] — does a set of rectangles cover the three regions completely?
 //! * [`cert`] — coverage certificates: the signed document and its offline check.
+//! * [`heuristic`] — the density model for planning: expected solutions and cost per target.
 //!
 //! Deliberately absent: HTTP, SQL, files, clocks. The kernel knows nothing of campaigns;
 //! the protocol knows nothing of how a unit is sieved.
 
 pub mod cert;
 pub mod digest;
+pub mod heuristic;
 pub mod kernel;
 pub mod numarg;
 pub mod protocol;
