@@ -13,6 +13,8 @@
 //! Deliberately absent: HTTP, SQL, files, clocks. The kernel knows nothing of campaigns;
 //! the protocol knows nothing of how a unit is sieved.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 pub mod cert;
 pub mod digest;
 pub mod heuristic;
