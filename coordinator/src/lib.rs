@@ -4,6 +4,7 @@
 //! Code map, one concern per module:
 //! * [`store`] — SQLite; the only module that contains SQL.
 //! * [`plan`] — cutting a target's regions into units with the kernel's cost model.
+//! * [`forecast`] — the `plan` command: expected yield and cost per target (density model).
 //! * [`quorum`] — when reports agree, settle, or dispute (no storage).
 //! * [`api`] — the HTTP service (axum): admin, worker protocol, monitoring, errors.
 //! * [`datadir`] — the data directory: database, coordinator key, admin token.
@@ -29,6 +30,7 @@ pub mod config_file;
 pub mod datadir;
 pub mod demo;
 pub mod export;
+pub mod forecast;
 pub mod plan;
 pub mod quorum;
 pub mod serve;
