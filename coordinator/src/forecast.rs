@@ -231,7 +231,7 @@ pub fn forecast_from_args(a: &PlanArgs) -> Result<Forecast> {
     };
     let prime_bound =
         numarg::parse_u64(&a.prime_bound).map_err(|e| anyhow::anyhow!("--prime-bound: {e}"))?;
-    if bound < 1 || bound > kernel::MAX_Z {
+    if !(1..=kernel::MAX_Z).contains(&bound) {
         bail!("--bound {bound} is outside the supported range 1 ..= 2^63 − 1");
     }
     forecast(&ks, from, bound, prime_bound)
