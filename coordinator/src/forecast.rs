@@ -126,7 +126,8 @@ fn skip_reason(k: i64) -> Option<String> {
     match kernel::check_target_allowing_cube(k) {
         Ok(_) => None,
         Err(KernelError::NoSolutionsMod9 { r, .. }) => Some(format!(
-            "k ≡ {r} (mod 9): no solutions (every cube is 0 or ±1 mod 9)"
+            "k ≡ {} (mod 9): no solutions (every cube is 0 or ±1 mod 9)",
+            if r < 0 { "−4" } else { "4" }
         )),
         Err(KernelError::Zero) => Some("k = 0: only the trivial solutions (t, −t, 0)".into()),
         Err(e) => Some(e.to_string()),
@@ -201,11 +202,14 @@ pub fn forecast(ks: &[i64], from: u64, bound: u64, prime_bound: u64) -> Result<F
         })
         .collect();
     let mut order: Vec<usize> = (0..targets.len()).collect();
+    // Cubes last: their divergent singular series would otherwise put them first.
+    let is_cube = |t: &TargetForecast| kernel::cube_root(t.k).is_some();
     order.sort_by(|&a, &b| {
-        targets[b]
-            .per_core_year
-            .total_cmp(&targets[a].per_core_year)
-            .then(targets[a].k.cmp(&targets[b].k))
+        let (ta, tb) = (&targets[a], &targets[b]);
+        is_cube(ta)
+            .cmp(&is_cube(tb))
+            .then(tb.per_core_year.total_cmp(&ta.per_core_year))
+            .then(ta.k.cmp(&tb.k))
     });
     for (r, &i) in order.iter().enumerate() {
         targets[i].rank = r + 1;
@@ -353,7 +357,10 @@ mod tests {
         let mut ranks: Vec<usize> = f.targets.iter().map(|t| t.rank).collect();
         ranks.sort_unstable();
         assert_eq!(ranks, (1..=16).collect::<Vec<_>>());
-        for w in f.targets.windows(2) {
+        // ranked by expected new per core-year, cubes (1, 8) last
+        let (cubes, rest): (Vec<_>, Vec<_>) = f.targets.iter().partition(|t| [1, 8].contains(&t.k));
+        assert!(cubes.iter().all(|c| c.rank > rest.len()));
+        for w in rest.windows(2) {
             assert!(w[0].per_core_year >= w[1].per_core_year);
         }
         // cubes are planned but flagged
