@@ -694,6 +694,20 @@ impl FoundVsExpected {
     }
 }
 
+/// The solutions the model speaks about: those with `min ≤ bound` outside the parametric
+/// families ([`family_of`]) and outside the trivial family `(c, t, −t)` of a cube `k` (a pair
+/// summing to 0); the count to put beside [`Prediction::expected_total`].
+pub fn count_for_model(k: i64, solutions: &[Solution], bound: u64) -> u64 {
+    let trivial = |s: &Solution| {
+        let [a, b, c] = s.0;
+        a + b == 0 || a + c == 0 || b + c == 0
+    };
+    solutions
+        .iter()
+        .filter(|s| s.min_abs() <= bound as u128 && !trivial(s) && family_of(k, s).is_none())
+        .count() as u64
+}
+
 // ---------------------------------------------------------------------------------------
 // Parametric families
 // ---------------------------------------------------------------------------------------
@@ -1170,6 +1184,12 @@ mod tests {
         for s in &out.solutions {
             assert_eq!(family_of(2, s), Some(Family::Verebrusov), "{s}");
         }
+        assert_eq!(count_for_model(2, &out.solutions, 100), 0);
+        // (1, 1, −1) is the trivial family of the cube 1, m is Mahler's, r counts
+        let mixed = [r, m, Solution::new(1, 1, -1)];
+        assert!(mixed.iter().all(|s| s.verify(1)));
+        assert_eq!(count_for_model(1, &mixed, 200), 1);
+        assert_eq!(count_for_model(1, &mixed, 50), 0); // min |·| of r is 64
     }
 
     #[test]
