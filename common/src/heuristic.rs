@@ -14,7 +14,7 @@
 //!   solution; [`search_seconds`] — the kernel's cost model over a target's regions.
 //! * [`poisson_interval`], [`FoundVsExpected`] — comparing what was found with the model;
 //!   [`family_of`] — solutions of the parametric families for `k = 1, 2`, which the model
-//!   does not count.
+//!   does not count; [`count_for_model`] — the found count to compare with the model.
 //!
 //! Pure functions: no I/O, no clocks. What this does not do: say anything certain. It is a
 //! conjecture-based forecast, useful for ranking targets, not a proof of anything.
