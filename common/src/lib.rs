@@ -10,12 +10,16 @@
 //! * [`merkle`] — RFC 6962 Merkle trees and audit paths (certificates, piece commitments).
 //! * [`tiling`] — does a set of rectangles cover the three regions completely?
 //! * [`cert`] — coverage certificates: the signed document and its offline check.
+//! * [`heuristic`] — the density model for planning: expected solutions and cost per target.
 //!
 //! Deliberately absent: HTTP, SQL, files, clocks. The kernel knows nothing of campaigns;
 //! the protocol knows nothing of how a unit is sieved.
 
+#![allow(clippy::manual_is_multiple_of)] // `is_multiple_of` is newer than our MSRV (1.80)
+
 pub mod cert;
 pub mod digest;
+pub mod heuristic;
 pub mod kernel;
 pub mod merkle;
 pub mod numarg;

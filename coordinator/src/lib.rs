@@ -7,6 +7,7 @@
 //! * [`store`] — the database (SQLite or PostgreSQL); the only module that contains SQL.
 //! * [`checker`] — the coordinator's own computations (spot checks, rechecks).
 //! * [`plan`] — cutting a target's regions into units with the kernel's cost model.
+//! * [`forecast`] — the `plan` command: expected yield and cost per target (density model).
 //! * [`api`] — the HTTP service (axum): admin, worker protocol, monitoring, errors.
 //! * [`datadir`] — the data directory: database, coordinator key, admin token.
 //! * [`config`] — service settings.
@@ -32,6 +33,7 @@ pub mod config_file;
 pub mod datadir;
 pub mod demo;
 pub mod export;
+pub mod forecast;
 pub mod lifecycle;
 pub mod plan;
 pub mod serve;

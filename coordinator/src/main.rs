@@ -3,7 +3,7 @@
 use anyhow::Result;
 use clap::{CommandFactory, FromArgMatches, Parser, Subcommand};
 use cubehunt_coordinator::{
-    checks, cli, config::ServiceConfig, config_file, datadir::DataDir, demo, serve,
+    checks, cli, config::ServiceConfig, config_file, datadir::DataDir, demo, forecast, serve,
 };
 use std::path::PathBuf;
 
@@ -58,6 +58,7 @@ enum Command {
     /// Run the whole system on this machine: a coordinator, local workers, a small campaign,
     /// its certificates and the audit (an invented scenario; a couple of minutes).
     Demo(demo::DemoArgs),
+    Plan(forecast::PlanArgs),
 }
 
 fn init_logging(json: bool) {
@@ -106,6 +107,7 @@ async fn run(c: Cli) -> Result<()> {
         Command::VerifyCertificate(a) => exit_with(checks::run_verify(a).await),
         Command::Export(a) => exit_with(checks::run_export(a).await),
         Command::Demo(a) => demo::run(a).await,
+        Command::Plan(a) => forecast::run(a),
     }
 }
 
