@@ -23,6 +23,10 @@ pub struct AuditArgs {
     /// Data directory of the coordinator (made by `init`).
     #[arg(long, env = "CUBEHUNT_DATA_DIR")]
     pub data_dir: PathBuf,
+    /// The store, when it is not the SQLite file of the data directory: a PostgreSQL URL
+    /// (postgres://…), as given to `serve --database`.
+    #[arg(long, env = "CUBEHUNT_DATABASE", hide_env_values = true)]
+    pub database: Option<String>,
     /// Recompute this fraction of the settled units with the local kernel (0..=1).
     #[arg(long, default_value = "0", value_parser = parse_fraction)]
     pub recheck: f64,
@@ -42,6 +46,10 @@ pub struct CertificateArgs {
     /// Data directory of the coordinator (made by `init`).
     #[arg(long, env = "CUBEHUNT_DATA_DIR")]
     pub data_dir: PathBuf,
+    /// The store, when it is not the SQLite file of the data directory: a PostgreSQL URL
+    /// (postgres://…), as given to `serve --database`.
+    #[arg(long, env = "CUBEHUNT_DATABASE", hide_env_values = true)]
+    pub database: Option<String>,
     /// Campaign name.
     #[arg(long)]
     pub campaign: String,
@@ -92,6 +100,10 @@ pub struct ExportArgs {
     /// Data directory of the coordinator (made by `init`).
     #[arg(long, env = "CUBEHUNT_DATA_DIR")]
     pub data_dir: PathBuf,
+    /// The store, when it is not the SQLite file of the data directory: a PostgreSQL URL
+    /// (postgres://…), as given to `serve --database`.
+    #[arg(long, env = "CUBEHUNT_DATABASE", hide_env_values = true)]
+    pub database: Option<String>,
     /// Campaign name.
     #[arg(long)]
     pub campaign: String,
@@ -122,11 +134,15 @@ fn seed_or_random(s: Option<u64>) -> u64 {
     s.unwrap_or_else(rand::random)
 }
 
-async fn open_store(dir: &DataDir) -> Result<Store> {
-    dir.check()?;
-    Store::open(&dir.db(), false)
+async fn open_store(dir: &DataDir, database: Option<&str>) -> Result<Store> {
+    let database = database.filter(|d| !d.is_empty());
+    dir.check_for(database.is_none())?;
+    Store::open_at(database, &dir.db(), false)
         .await
-        .with_context(|| format!("opening {}", dir.db().display()))
+        .with_context(|| match database {
+            Some(_) => "opening the database given by --database".to_string(),
+            None => format!("opening {}", dir.db().display()),
+        })
 }
 
 /// Write `bytes` to `path` atomically (temporary file, then rename), or to stdout.
@@ -149,7 +165,7 @@ fn write_out(path: Option<&Path>, bytes: &[u8]) -> Result<()> {
 
 pub async fn run_audit(a: AuditArgs) -> Result<i32> {
     let dir = DataDir::new(&a.data_dir);
-    let store = open_store(&dir).await?;
+    let store = open_store(&dir, a.database.as_deref()).await?;
     let key = dir.signing_key()?.verifying_key();
     let seed = seed_or_random(a.seed);
     let opts = AuditOptions {
@@ -187,7 +203,7 @@ pub async fn run_certificate(a: CertificateArgs) -> Result<i32> {
         .transpose()
         .map_err(|e| anyhow!("--bound: {e}"))?;
     let dir = DataDir::new(&a.data_dir);
-    let store = open_store(&dir).await?;
+    let store = open_store(&dir, a.database.as_deref()).await?;
     let key = dir.signing_key()?;
     let res = certify::issue(&store, &key, &a.campaign, k, bound, crate::now()).await;
     store.close().await;
@@ -336,7 +352,7 @@ pub async fn run_verify(a: VerifyArgs) -> Result<i32> {
 
 pub async fn run_export(a: ExportArgs) -> Result<i32> {
     let dir = DataDir::new(&a.data_dir);
-    let store = open_store(&dir).await?;
+    let store = open_store(&dir, a.database.as_deref()).await?;
     let n = match &a.out {
         None => {
             let mut o = std::io::BufWriter::new(std::io::stdout());

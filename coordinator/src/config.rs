@@ -26,6 +26,12 @@ impl Enrolment {
 /// Settings of the running service. Defaults suit a campaign of thousands of workers.
 #[derive(Clone, Debug, Args)]
 pub struct ServiceConfig {
+    /// The store: empty for the SQLite file in the data directory (the default), or a
+    /// PostgreSQL URL such as postgres://cubehunt@db.internal:5432/cubehunt (several
+    /// coordinators may share one PostgreSQL database; the key and token stay in the data
+    /// directory, which every replica needs a copy of).
+    #[arg(long, env = "CUBEHUNT_DATABASE", default_value = "", hide_env_values = true)]
+    pub database: String,
     /// Workers must heartbeat at least this often (seconds); a heartbeat extends the lease to
     /// three times this from now, within the lease's limit.
     #[arg(long, env = "CUBEHUNT_HEARTBEAT_S", default_value_t = 60)]

@@ -8,10 +8,14 @@ use anyhow::{Context, Result};
 use std::time::Duration;
 
 pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()> {
-    dir.check()?;
-    let store = Store::open(&dir.db(), false)
+    let database = (!config.database.is_empty()).then_some(config.database.as_str());
+    dir.check_for(database.is_none())?;
+    let store = Store::open_at(database, &dir.db(), false)
         .await
-        .with_context(|| format!("opening {}", dir.db().display()))?;
+        .with_context(|| match database {
+            Some(_) => "opening the database given by --database".to_string(),
+            None => format!("opening {}", dir.db().display()),
+        })?;
     let key = dir.signing_key()?;
     let token = dir.admin_token()?;
     let listener = tokio::net::TcpListener::bind(listen)
@@ -19,9 +23,12 @@ pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()
         .with_context(|| format!("cannot listen on {listen}: is the address right and the port free? (e.g. --listen 127.0.0.1:8480)"))?;
     let addr = listener.local_addr()?;
     let url = format!("http://{addr}");
-    dir.write_url(&url)?;
+    if let Err(e) = dir.write_url(&url) {
+        // A read-only data directory (a replica with its key from a secret) is fine.
+        tracing::warn!(error = %e, "cannot write listen.url into the data directory");
+    }
     let state = AppState::new(store, key, token, config.clone());
-    tracing::info!(%url, coordinator_key = %state.public_key, schema = state.store.schema_version().await?, "coordinator listening");
+    tracing::info!(%url, coordinator_key = %state.public_key, store = ?state.store.backend(), schema = state.store.schema_version().await?, "coordinator listening");
     eprintln!("cubehunt-coordinator listening on {url}");
 
     let sweeper = {

@@ -285,6 +285,38 @@ impl Coordinator {
         format!("http://127.0.0.1:{}", self.port)
     }
 
+    /// A second coordinator over the same store (`serve_args` name the shared database with
+    /// `--database`): a copy of this one's data directory (same key and token) under `root`,
+    /// served on a port of its own.
+    pub fn replica(&self, root: &Path, serve_args: &[&str]) -> Result<Coordinator> {
+        let dir = root.join("coordinator");
+        std::fs::create_dir_all(&dir)?;
+        for f in ["coordinator.key", "coordinator.pub", "admin.token"] {
+            std::fs::copy(self.dir.join(f), dir.join(f)).with_context(|| format!("copying {f}"))?;
+        }
+        let mut c = Coordinator {
+            dir,
+            port: free_port(),
+            proc: None,
+            public_key: self.public_key.clone(),
+            serve_args: s(serve_args),
+            starts: 0,
+        };
+        c.serve()?;
+        Ok(c)
+    }
+
+    /// `audit --data-dir DIR` with extra arguments (e.g. `--database URL`).
+    pub fn audit_with(&self, extra: &[&str]) -> Result<CmdOutput> {
+        let mut args = s(&["audit", "--data-dir", self.dir.to_str().unwrap()]);
+        args.extend(s(extra));
+        let (code, out, err) = run_cmd(&bin("cubehunt-coordinator"), &args, Duration::from_secs(300))?;
+        Ok(CmdOutput {
+            code,
+            text: format!("{out}{err}"),
+        })
+    }
+
     /// Start `serve` (again) on the same port and data directory; wait until it answers.
     pub fn serve(&mut self) -> Result<()> {
         self.starts += 1;

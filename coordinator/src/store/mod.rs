@@ -90,18 +90,40 @@ pub enum Backend {
 }
 
 impl Backend {
-    /// The statement that opens a write transaction.
-    fn begin(self) -> &'static str {
+    /// The statements that open a write transaction.
+    fn begin(self) -> &'static [&'static str] {
         match self {
             // Take the write lock at once, so that a batch never fails half-way on a busy lock.
-            Backend::Sqlite => "BEGIN IMMEDIATE",
-            Backend::Postgres => "BEGIN",
+            Backend::Sqlite => &["BEGIN IMMEDIATE"],
+            // Several coordinators may share the database: every write transaction first takes
+            // one transaction-scoped advisory lock, so that the writers of all replicas take
+            // turns exactly as one writer's batches do (no unit leased twice to one worker,
+            // none settled twice). Reads do not take it.
+            Backend::Postgres => &["BEGIN", "SELECT pg_advisory_xact_lock(7263021001)"],
+        }
+    }
+
+    fn migrator(self) -> &'static sqlx::migrate::Migrator {
+        match self {
+            Backend::Sqlite => &SQLITE_MIGRATOR,
+            Backend::Postgres => &POSTGRES_MIGRATOR,
+        }
+    }
+
+    /// Whether `location` names a PostgreSQL database (a `postgres://` or `postgresql://` URL).
+    pub fn of(location: &str) -> Backend {
+        if location.starts_with("postgres://") || location.starts_with("postgresql://") {
+            Backend::Postgres
+        } else {
+            Backend::Sqlite
         }
     }
 }
 
 /// The SQLite schema, embedded at build time.
 pub static SQLITE_MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("../migrations/sqlite");
+/// The PostgreSQL schema (the same tables), embedded at build time.
+pub static POSTGRES_MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("../migrations/postgres");
 
 /// A boxed future borrowing a connection.
 pub type BoxFut<'c, T> = Pin<Box<dyn Future<Output = T> + Send + 'c>>;
@@ -144,13 +166,38 @@ impl Store {
         sqlx::query("PRAGMA journal_mode = WAL")
             .execute(&pool)
             .await?;
-        check_schema_lineage(&pool).await?;
-        SQLITE_MIGRATOR.run(&pool).await?;
+        Store::finish_open(pool, Backend::Sqlite).await
+    }
+
+    /// Open a PostgreSQL database (`postgres://user@host:port/db?…`), bringing its schema up
+    /// to date. Several coordinators may open the same database at once.
+    pub async fn open_postgres(url: &str) -> Result<Store> {
+        sqlx::any::install_default_drivers();
+        let pool = AnyPoolOptions::new()
+            .max_connections(8)
+            .acquire_timeout(std::time::Duration::from_secs(30))
+            .connect(url)
+            .await?;
+        Store::finish_open(pool, Backend::Postgres).await
+    }
+
+    /// Open the store a command names: a `postgres://` URL, or else the SQLite file `path`.
+    pub async fn open_at(database: Option<&str>, path: &Path, create: bool) -> Result<Store> {
+        match database {
+            Some(url) if Backend::of(url) == Backend::Postgres => Store::open_postgres(url).await,
+            Some(other) => Store::open(Path::new(other.strip_prefix("sqlite://").unwrap_or(other)), create).await,
+            None => Store::open(path, create).await,
+        }
+    }
+
+    async fn finish_open(pool: AnyPool, backend: Backend) -> Result<Store> {
+        check_schema_lineage(&pool, backend).await?;
+        backend.migrator().run(&pool).await?;
         let conn = pool.acquire().await?.detach();
         Ok(Store {
-            writer: writer::spawn(conn, Backend::Sqlite),
+            writer: writer::spawn(conn, backend),
             pool,
-            backend: Backend::Sqlite,
+            backend,
         })
     }
 
@@ -239,12 +286,16 @@ impl Store {
 /// Refuse a database made by an earlier, incompatible pre-release of the schema (its first
 /// migration has another checksum) with a message that says what to do, instead of sqlx's
 /// checksum error.
-async fn check_schema_lineage(pool: &AnyPool) -> Result<()> {
-    let has_table: i64 = sqlx::query_scalar(
-        "SELECT count(*) FROM sqlite_master WHERE type = 'table' AND name = '_sqlx_migrations'",
-    )
-    .fetch_one(pool)
-    .await?;
+async fn check_schema_lineage(pool: &AnyPool, backend: Backend) -> Result<()> {
+    let sql = match backend {
+        Backend::Sqlite => {
+            "SELECT count(*) FROM sqlite_master WHERE type = 'table' AND name = '_sqlx_migrations'"
+        }
+        Backend::Postgres => {
+            "SELECT count(*) FROM information_schema.tables WHERE table_schema = current_schema() AND table_name = '_sqlx_migrations'"
+        }
+    };
+    let has_table: i64 = sqlx::query_scalar(sql).fetch_one(pool).await?;
     if has_table == 0 {
         return Ok(());
     }
@@ -252,7 +303,8 @@ async fn check_schema_lineage(pool: &AnyPool) -> Result<()> {
         sqlx::query_scalar("SELECT checksum FROM _sqlx_migrations WHERE version = 1")
             .fetch_optional(pool)
             .await?;
-    let ours = SQLITE_MIGRATOR
+    let ours = backend
+        .migrator()
         .iter()
         .find(|m| m.version == 1)
         .map(|m| m.checksum.to_vec());

@@ -110,13 +110,18 @@ async fn run(mut conn: AnyConnection, backend: Backend, mut rx: mpsc::Receiver<M
 
 async fn run_batch(conn: &mut AnyConnection, backend: Backend, batch: Vec<Job>) {
     let mut delivers: Vec<Deliver> = Vec::with_capacity(batch.len());
-    if let Err(e) = conn.execute(backend.begin()).await {
-        tracing::error!(error = %e, "cannot begin a write transaction");
-        let msg = e.to_string();
-        for job in batch {
-            (job.abort)(Err(db_error(&msg)));
+    for (i, stmt) in backend.begin().iter().enumerate() {
+        if let Err(e) = conn.execute(*stmt).await {
+            tracing::error!(error = %e, "cannot begin a write transaction");
+            if i > 0 {
+                let _ = conn.execute("ROLLBACK").await;
+            }
+            let msg = e.to_string();
+            for job in batch {
+                (job.abort)(Err(db_error(&msg)));
+            }
+            return;
         }
-        return;
     }
     for job in batch {
         if let Err(e) = conn.execute("SAVEPOINT op").await {
