@@ -30,7 +30,12 @@ pub struct ServiceConfig {
     /// PostgreSQL URL such as postgres://cubehunt@db.internal:5432/cubehunt (several
     /// coordinators may share one PostgreSQL database; the key and token stay in the data
     /// directory, which every replica needs a copy of).
-    #[arg(long, env = "CUBEHUNT_DATABASE", default_value = "", hide_env_values = true)]
+    #[arg(
+        long,
+        env = "CUBEHUNT_DATABASE",
+        default_value = "",
+        hide_env_values = true
+    )]
     pub database: String,
     /// Workers must heartbeat at least this often (seconds); a heartbeat extends the lease to
     /// three times this from now, within the lease's limit.
@@ -186,6 +191,8 @@ impl ServiceConfig {
             grace_s: self.heartbeat_grace_s(),
             offer_s: self.offer_s as i64,
             active_window_s: self.active_window_s as i64,
+            ask_window_s: (3 * self.retry_after_s as i64)
+                .clamp(5, (self.active_window_s as i64).max(5)),
             distinct_prefix: self.distinct_prefix,
             ..LeasePolicy::default()
         }

@@ -95,7 +95,11 @@ impl DataDir {
     /// [`DataDir::check`], without requiring the SQLite file when the store is elsewhere
     /// (`--database postgres://…`).
     pub fn check_for(&self, sqlite: bool) -> Result<()> {
-        let files: &[&str] = if sqlite { &[DB_FILE, KEY_FILE, TOKEN_FILE] } else { &[KEY_FILE, TOKEN_FILE] };
+        let files: &[&str] = if sqlite {
+            &[DB_FILE, KEY_FILE, TOKEN_FILE]
+        } else {
+            &[KEY_FILE, TOKEN_FILE]
+        };
         for &f in files {
             if !self.path(f).is_file() {
                 bail!("{} is not a coordinator data directory ({f} is missing); create one with `cubehunt-coordinator init --data-dir DIR`", self.root.display());

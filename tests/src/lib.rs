@@ -310,7 +310,11 @@ impl Coordinator {
     pub fn audit_with(&self, extra: &[&str]) -> Result<CmdOutput> {
         let mut args = s(&["audit", "--data-dir", self.dir.to_str().unwrap()]);
         args.extend(s(extra));
-        let (code, out, err) = run_cmd(&bin("cubehunt-coordinator"), &args, Duration::from_secs(300))?;
+        let (code, out, err) = run_cmd(
+            &bin("cubehunt-coordinator"),
+            &args,
+            Duration::from_secs(300),
+        )?;
         Ok(CmdOutput {
             code,
             text: format!("{out}{err}"),

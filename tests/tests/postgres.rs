@@ -32,16 +32,30 @@ impl TestDb {
         use sqlx::{Connection, Executor};
         let rt = tokio::runtime::Runtime::new().map_err(|e| e.to_string())?;
         let admin = admin_url();
-        let name = format!("cubehunt_test_{}_{}", std::process::id(), rand::random::<u32>());
+        let name = format!(
+            "cubehunt_test_{}_{}",
+            std::process::id(),
+            rand::random::<u32>()
+        );
         rt.block_on(async {
-            let mut c = sqlx::PgConnection::connect(&admin).await.map_err(|e| e.to_string())?;
+            let mut c = sqlx::PgConnection::connect(&admin)
+                .await
+                .map_err(|e| e.to_string())?;
             c.execute(format!("CREATE DATABASE {name}").as_str())
                 .await
                 .map_err(|e| e.to_string())?;
             c.close().await.map_err(|e| e.to_string())
         })?;
-        let base = admin.rsplit_once('/').map_or(admin.as_str(), |(b, _)| b).to_string();
-        Ok(TestDb { url: format!("{base}/{name}"), admin, name, rt })
+        let base = admin
+            .rsplit_once('/')
+            .map_or(admin.as_str(), |(b, _)| b)
+            .to_string();
+        Ok(TestDb {
+            url: format!("{base}/{name}"),
+            admin,
+            name,
+            rt,
+        })
     }
 
     fn rows(&self, sql: &str) -> Vec<(i64, i64, i64)> {
@@ -97,12 +111,17 @@ fn two_replicas_share_a_postgres_store_and_survive_a_sigkill() {
         "1",
     ];
     let a = Coordinator::start(&tmp.path().join("a"), &serve).unwrap();
-    let created = a.create_campaign("shared", "3,30", "100000", 0.001).unwrap();
+    let created = a
+        .create_campaign("shared", "3,30", "100000", 0.001)
+        .unwrap();
     let units = created["units"]["total"].as_i64().unwrap();
     assert!(units >= 8, "{created}");
     let mut b = a.replica(&tmp.path().join("b"), &serve).unwrap();
     // Both replicas answer for the same campaign.
-    assert_eq!(b.show("shared").unwrap()["units"]["total"].as_i64(), Some(units));
+    assert_eq!(
+        b.show("shared").unwrap()["units"]["total"].as_i64(),
+        Some(units)
+    );
 
     let on_a: Vec<Worker> = ["lena", "milo"]
         .iter()
@@ -113,11 +132,16 @@ fn two_replicas_share_a_postgres_store_and_survive_a_sigkill() {
         .map(|o| Worker::start(tmp.path(), &b.url(), o, &[]).unwrap())
         .collect();
     // Mid-campaign: some reports went through each replica.
-    wait_for("reports through both replicas", Duration::from_secs(120), || {
-        let reports = |w: &Worker| lines_with(&w.log_text(), "): accepted").len();
-        (on_a.iter().map(reports).sum::<usize>() >= 1 && on_b.iter().map(reports).sum::<usize>() >= 1)
-            .then_some(())
-    })
+    wait_for(
+        "reports through both replicas",
+        Duration::from_secs(120),
+        || {
+            let reports = |w: &Worker| lines_with(&w.log_text(), "): accepted").len();
+            (on_a.iter().map(reports).sum::<usize>() >= 1
+                && on_b.iter().map(reports).sum::<usize>() >= 1)
+                .then_some(())
+        },
+    )
     .unwrap_or_else(|e| panic!("{e:#}\n{}", b.log_text()));
     b.kill9();
     for w in &mut on_b {
@@ -149,7 +173,10 @@ fn two_replicas_share_a_postgres_store_and_survive_a_sigkill() {
     let twice = db.rows(
         "SELECT unit_id, worker_id, count(*) FROM leases GROUP BY unit_id, worker_id HAVING count(*) > 1",
     );
-    assert!(twice.is_empty(), "a worker leased one unit twice: {twice:?}");
+    assert!(
+        twice.is_empty(),
+        "a worker leased one unit twice: {twice:?}"
+    );
     let audit = a.audit_with(&["--database", &db.url]).unwrap();
     assert!(audit.ok(), "{}", audit.text);
     drop(on_a);

@@ -38,6 +38,10 @@ pub struct LeasePolicy {
     pub offer_s: i64,
     /// Workers seen within this long are eligible for offers.
     pub active_window_s: i64,
+    /// Only workers that asked for work within this long are drawn for offers, and an offer
+    /// lapses when its worker has not asked within this long after it (about three of a
+    /// polling worker's intervals).
+    pub ask_window_s: i64,
     /// The two leases of a unit also come from different network prefixes.
     pub distinct_prefix: bool,
     /// First leases are drawn among this many untouched units (in planned order).
@@ -58,6 +62,7 @@ impl Default for LeasePolicy {
             grace_s: 180,
             offer_s: 120,
             active_window_s: 600,
+            ask_window_s: 90,
             distinct_prefix: false,
             fresh_window: 64,
             recheck_backlog: 64,
@@ -371,10 +376,16 @@ async fn expire_in(c: &mut AnyConnection, now: i64, policy: &LeasePolicy) -> Res
 const OFFERS_PER_SWEEP: i64 = 1000;
 
 async fn lapse_offers(c: &mut AnyConnection, now: i64, policy: &LeasePolicy) -> Result<()> {
-    sqlx::query("UPDATE units SET offered_to = NULL, offered_at = NULL WHERE offered_to IS NOT NULL AND offered_at < $1")
-        .bind(now - policy.offer_s)
-        .execute(&mut *c)
-        .await?;
+    // Lapse offers that are old, or whose worker has not come for them within the ask window.
+    sqlx::query(
+        "UPDATE units SET offered_to = NULL, offered_at = NULL WHERE offered_to IS NOT NULL AND \
+         (offered_at < $1 OR (offered_at < $2 AND EXISTS \
+           (SELECT 1 FROM workers w WHERE w.id = units.offered_to AND w.asked_at < units.offered_at)))",
+    )
+    .bind(now - policy.offer_s)
+    .bind(now - policy.ask_window_s)
+    .execute(&mut *c)
+    .await?;
     let wanting: Vec<i64> = sqlx::query_scalar(
         "SELECT u.id FROM units u JOIN campaigns c ON c.id = u.campaign_id \
          WHERE u.need > u.active AND u.offered_to IS NULL AND u.state IN ('open', 'disputed') \
@@ -627,7 +638,7 @@ pub(super) async fn draw_offer(
         );
         chosen = sqlx::query_scalar(&q)
             .bind(&u.spec.kernel)
-            .bind(now - policy.active_window_s)
+            .bind(now - policy.ask_window_s)
             .bind(policy.rules.leases_per_thread.max(1) as i64)
             .bind(known)
             .bind(policy.rules.probation_reports as i64)

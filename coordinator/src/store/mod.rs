@@ -185,7 +185,13 @@ impl Store {
     pub async fn open_at(database: Option<&str>, path: &Path, create: bool) -> Result<Store> {
         match database {
             Some(url) if Backend::of(url) == Backend::Postgres => Store::open_postgres(url).await,
-            Some(other) => Store::open(Path::new(other.strip_prefix("sqlite://").unwrap_or(other)), create).await,
+            Some(other) => {
+                Store::open(
+                    Path::new(other.strip_prefix("sqlite://").unwrap_or(other)),
+                    create,
+                )
+                .await
+            }
             None => Store::open(path, create).await,
         }
     }
