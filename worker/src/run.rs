@@ -263,29 +263,36 @@ impl Worker {
                 }
             }
         };
-        let got = about.coordinator_key.trim().to_ascii_lowercase();
-        let key = sign::public_from_hex(&got).map_err(|_| {
-            anyhow::anyhow!(
-                "the coordinator presents {:?} as its key, which is not a public key",
-                about.coordinator_key
-            )
-        })?;
-        match &self.pinned {
-        Some(p) if *p != key => bail!(
-            "COORDINATOR KEY MISMATCH: the coordinator at {} presents key {got}, but the pinned key is {}. \
-             Refusing to work for it. Either this is not your coordinator, or its key changed: verify with its operator.",
-            self.args.coordinator,
-            sign::public_to_hex(p)
-        ),
-        Some(_) => {}
-        None => {
+        let (got, key) = self.presented_key(&about.coordinator_key, "work for it")?;
+        if self.pinned.is_none() {
             self.state.save_pinned_key(&got)?;
             self.pinned = Some(key);
             self.api.set_coordinator_key(&got);
             event!("pinned coordinator key {got} (first contact; pass --coordinator-key to check it instead)");
         }
-    }
         Ok(true)
+    }
+
+    /// A key the coordinator presents, parsed and compared with the pinned one (if any):
+    /// a mismatch stops the worker, which refuses to do `refusing`.
+    fn presented_key(&self, presented: &str, refusing: &str) -> Result<(String, sign::PublicKey)> {
+        let got = presented.trim().to_ascii_lowercase();
+        let key = sign::public_from_hex(&got).map_err(|_| {
+            anyhow::anyhow!(
+                "the coordinator presents {presented:?} as its key, which is not a public key"
+            )
+        })?;
+        if let Some(p) = &self.pinned {
+            if *p != key {
+                bail!(
+                    "COORDINATOR KEY MISMATCH: the coordinator at {} presents key {got}, but the pinned key is {}. \
+                     Refusing to {refusing}. Either this is not your coordinator, or its key changed: verify with its operator.",
+                    self.args.coordinator,
+                    sign::public_to_hex(p)
+                );
+            }
+        }
+        Ok((got, key))
     }
 
     fn retry_later(&mut self, what: &str, e: &CallError) -> bool {
@@ -511,23 +518,8 @@ impl Worker {
             }
         };
         self.backoff.reset();
-        let got = resp.coordinator_key.trim().to_ascii_lowercase();
-        let got_key = sign::public_from_hex(&got).map_err(|_| {
-            anyhow::anyhow!(
-                "the coordinator answered the enrolment with {:?}, which is not a public key",
-                resp.coordinator_key
-            )
-        })?;
-        match &self.pinned {
-            Some(p) if *p != got_key => bail!(
-                "COORDINATOR KEY MISMATCH: the coordinator at {} presents key {got}, but the pinned key is {}. \
-                 Refusing to enrol. Either this is not your coordinator, or its key changed: verify with its operator.",
-                self.args.coordinator,
-                sign::public_to_hex(p)
-            ),
-            Some(_) => {}
-            None => unreachable!("pinned before enrolling"),
-        }
+        assert!(self.pinned.is_some(), "pinned before enrolling");
+        self.presented_key(&resp.coordinator_key, "enrol")?;
         if resp.worker_id <= 0 {
             bail!(
                 "the coordinator answered the enrolment with worker id {}, which is not valid",
