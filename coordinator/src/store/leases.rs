@@ -505,6 +505,10 @@ async fn pick(
         if backlog >= policy.recheck_backlog {
             return Ok(None);
         }
+        // An untouched unit, or else one waiting for a further lease that nobody was drawn
+        // for (otherwise a unit reported once by a worker past probation would wait for
+        // ever while only new workers are about); either way the organiser's side then
+        // recomputes it, so a new worker's word never settles anything alone.
         let fresh = candidates(
             c,
             w,
@@ -513,8 +517,15 @@ async fn pick(
             policy.fresh_window,
         )
         .await?;
-        let Some(u) = pick_random(fresh) else {
-            return Ok(None);
+        let u = match pick_random(fresh) {
+            Some(u) => u,
+            None => {
+                match pick_random(candidates(c, w, policy, &unoffered, policy.fresh_window).await?)
+                {
+                    Some(u) => u,
+                    None => return Ok(None),
+                }
+            }
         };
         sqlx::query("UPDATE units SET recheck = 1 WHERE id = $1")
             .bind(u.id())
