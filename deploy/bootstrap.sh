@@ -5,7 +5,17 @@
 # at 127.0.0.1:5432 with trust authentication for local TCP and a database `test` (started
 # when installed but stopped, installed from Debian's `postgresql` when missing; skip with
 # CUBEHUNT_SKIP_POSTGRES=1). Idempotent; does nothing when all is present.
+#
+#   bash deploy/bootstrap.sh               everything the tests need
+#   bash deploy/bootstrap.sh --build-only  only what building needs (m4, cc, make): enough
+#                                          for the demo and for running a coordinator/worker
 set -euo pipefail
+case "${1:-}" in
+  "") ;;
+  --build-only) export CUBEHUNT_SKIP_BROWSER=1 CUBEHUNT_SKIP_POSTGRES=1 ;;
+  -h|--help) sed -n '2,11p' "$0" | sed 's/^# \{0,1\}//'; exit 0 ;;
+  *) echo "bootstrap: unknown argument ${1:?}; use --build-only or nothing (see --help)" >&2; exit 2 ;;
+esac
 need=()
 command -v m4 >/dev/null 2>&1 || need+=(m4)
 command -v cc >/dev/null 2>&1 || need+=(gcc)

@@ -1,4 +1,4 @@
-//! The digest of a unit's work (METHOD.md, "The digest").
+//! The digest of a unit's work (docs/method.md, "The digest").
 //!
 //! Counts plus a commutative hash over every sieve survivor. Combination is field-wise
 //! addition (wrapping for the hash), so the digest of a union of disjoint rectangles is the

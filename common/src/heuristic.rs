@@ -1014,7 +1014,7 @@ mod tests {
 
     #[test]
     fn model_matches_kernel_counts_summed_over_many_k() {
-        // The heuristic against observation (METHOD.md, "Expected density"): every solution with
+        // The heuristic against observation (docs/method.md, "Expected density"): every solution with
         // min ≤ B found by the kernel's own complete search (`kernel::solve`, itself checked
         // against brute force in the kernel tests), summed over the cube-free admissible
         // 3 ≤ k ≤ 600 except k = 2 (Verebrusov's family, which the model does not count;

@@ -1,7 +1,7 @@
 //! cubehunt-common: everything the coordinator and the worker must agree on, and nothing else.
 //!
 //! * [`kernel`] — the search for `x³ + y³ + z³ = k` over one rectangle of one region
-//!   (METHOD.md), the work [`digest`] it produces, exact verification of solutions.
+//!   (docs/method.md), the work [`digest`] it produces, exact verification of solutions.
 //! * [`unit`] — regions, rectangles, units and their canonical (signed) encoding.
 //! * [`report`] — what a worker returns for a lease, and its canonical encoding.
 //! * [`sign`] — Ed25519 keys, signatures over canonical bytes, signed HTTP requests.

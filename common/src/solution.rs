@@ -1,6 +1,6 @@
 //! A solution triple of `x³ + y³ + z³ = k`, in canonical form, verified in big integers.
 //!
-//! Canonical form (METHOD.md): the three values sorted ascending, printed as decimal strings.
+//! Canonical form (docs/method.md): the three values sorted ascending, printed as decimal strings.
 //! Values are held as `i128`: within the supported range (|z| < 2⁶³) the larger coordinates
 //! stay below 2⁹⁶ in absolute value. Verification never trusts `i128` arithmetic: it uses GMP.
 

@@ -6,7 +6,7 @@
 //! sort, then one sweep over `d` with a segment tree over the compressed `|z|` axis
 //! (`O(n log n)` time, `O(n)` memory).
 //!
-//! The sets to cover, for target `k` with `Z0 = ⌊√|k|⌋` and bound `B` (METHOD.md):
+//! The sets to cover, for target `k` with `Z0 = ⌊√|k|⌋` and bound `B` (docs/method.md):
 //! * small (S): every `|z| ∈ [0, min(Z0, B)]`; a tile `(z_lo, z_hi]` covers `z_lo+1 ..= z_hi`,
 //!   and the tile with `z_lo = 0` also covers `z = 0`;
 //! * equal (E): every `|z| ∈ (Z0, B]`;
@@ -331,7 +331,7 @@ fn sweep(
     events.sort_unstable_by_key(|e| (e.0, e.1));
     let mut ev = 0;
     let last_piece = pieces - 1;
-    let mut pending_gap: Option<Gap> = None;
+    let mut open_gap: Option<Gap> = None;
     for (si, w) in ds.windows(2).enumerate() {
         let (a, b) = (w[0], w[1]);
         while ev < events.len() && events[ev].0 <= a {
@@ -362,18 +362,18 @@ fn sweep(
                 z_last: zs[end + 1],
             };
             out.gap_count += 1;
-            match &mut pending_gap {
+            match &mut open_gap {
                 Some(p) if p.d_hi == a && p.z_first == gap.z_first && p.z_last == gap.z_last => {
                     p.d_hi = b;
                     out.gap_count -= 1;
                 }
                 _ => {
-                    if let Some(p) = pending_gap.take() {
+                    if let Some(p) = open_gap.take() {
                         if out.gaps.len() < MAX_LISTED {
                             out.gaps.push(p);
                         }
                     }
-                    pending_gap = Some(gap);
+                    open_gap = Some(gap);
                 }
             }
             pos = end + 1;
@@ -412,7 +412,7 @@ fn sweep(
             out.overlap_count += 1;
         }
     }
-    if let Some(p) = pending_gap.take() {
+    if let Some(p) = open_gap.take() {
         if out.gaps.len() < MAX_LISTED {
             out.gaps.push(p);
         }

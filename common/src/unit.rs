@@ -1,4 +1,4 @@
-//! Regions, rectangles and units (CONVENTIONS.md), with the canonical byte encoding that the
+//! Regions, rectangles and units (docs/vocabulary.md), with the canonical byte encoding that the
 //! coordinator signs and the worker verifies.
 //!
 //! Rectangle semantics, for every region: `d ∈ [d_lo, d_hi)`, `|z| ∈ (z_lo, z_hi]`.

@@ -1,4 +1,4 @@
-//! Composability of the digest (METHOD.md, "The digest"): any split of a rectangle gives the
+//! Composability of the digest (docs/method.md, "The digest"): any split of a rectangle gives the
 //! same solutions and the same combined digest as the whole, and the thread count changes
 //! nothing. Common practice, no source.
 

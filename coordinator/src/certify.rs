@@ -97,7 +97,7 @@ pub async fn issue(
             if unsettled.len() > 5 { ", …" } else { "" }
         )));
     }
-    let (spot, rechecks) = store.target_pending_checks(t.id).await?;
+    let (spot, rechecks) = store.target_waiting_checks(t.id).await?;
     if spot > 0 || rechecks > 0 {
         return Err(CertError::Incomplete(format!(
             "target k = {k} of campaign {campaign:?} has every unit settled, but the coordinator's own checks are not finished \

@@ -2,7 +2,7 @@
 //!
 //! The scenario is invented: the Riverside maths club hunts sums of three cubes over one
 //! weekend, with a handful of targets up to a modest bound and three members lending their
-//! laptops. The demo drives the real pieces as separate processes, exactly as a host would by
+//! laptops. The demo drives the real pieces as separate processes, exactly as an organiser would by
 //! hand: `init`, `serve` on 127.0.0.1, `campaign create`, three `cubehunt-worker run`
 //! (found next to this binary), then `certificate` and `verify-certificate` for every target
 //! and the `audit` of the store. It exits with the audit's verdict.

@@ -11,7 +11,7 @@ use std::path::PathBuf;
 #[command(
     name = "cubehunt-coordinator",
     version,
-    about = "Host cubehunt campaigns: plan and sign units, lease them to volunteer workers, cross-check their reports."
+    about = "Run cubehunt campaigns: plan and sign units, lease them to volunteer workers, cross-check their reports."
 )]
 struct Cli {
     /// Log as JSON lines (default: human-readable). Filter with RUST_LOG (default info).

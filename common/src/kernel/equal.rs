@@ -1,5 +1,5 @@
 //! Region (E), two equal smallest coordinates: `y = z`, `|z| > Z0`, so `x³ + 2z³ = k`
-//! (METHOD.md, "(E) two equal smallest coordinates"). Here `k ≥ 1` ([`super::scan`] turns a
+//! (docs/method.md, "(E) two equal smallest coordinates"). Here `k ≥ 1` ([`super::scan`] turns a
 //! negative `k` into a positive one).
 //!
 //! Each visited `z` gets one exact test: is `k − 2z³` a cube? Which `z` are visited:

@@ -1,4 +1,4 @@
-//! The main region (C) of METHOD.md: Booker's `d = |x + y|` search over one rectangle
+//! The main region (C) of docs/method.md: Booker's `d = |x + y|` search over one rectangle
 //! `d ∈ [d_lo, d_hi)`, `|z| ∈ (z_lo, z_hi]`.
 //!
 //! # What is enumerated

@@ -1,4 +1,4 @@
-//! The search kernel (METHOD.md): every solution of `x³ + y³ + z³ = k` in one rectangle of
+//! The search kernel (docs/method.md): every solution of `x³ + y³ + z³ = k` in one rectangle of
 //! one region, with the digest of the work.
 //!
 //! Public surface (stable; the coordinator, the worker and the audit build on it):

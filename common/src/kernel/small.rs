@@ -1,5 +1,5 @@
 //! Region (S), small z: `|z| ≤ Z0`, every way of writing `n = k − z³` as `x³ + y³`
-//! (METHOD.md, "(S) small z").
+//! (docs/method.md, "(S) small z").
 //!
 //! For `x³ + y³ = n ≠ 0` put `e = x + y`. Since `x³ + y³ = e·(x² − xy + y²)` and
 //! `x² − xy + y² = (e² + 3(x − y)²)/4 > 0`, `e` divides `n`, has the sign of `n`, and

@@ -134,7 +134,7 @@ impl Store {
 
     /// Checks a target's certificate waits for: (spot checks waiting on its units' counted
     /// reports, units waiting for the organiser's side).
-    pub async fn target_pending_checks(&self, target_id: i64) -> Result<(i64, i64)> {
+    pub async fn target_waiting_checks(&self, target_id: i64) -> Result<(i64, i64)> {
         let spot: i64 = sqlx::query_scalar(
             "SELECT count(*) FROM spot_checks s JOIN units u ON u.id = s.unit_id JOIN reports r ON r.id = s.report_id \
              WHERE u.target_id = $1 AND s.state = 'waiting' AND r.verdict IN ('counted', 'agree', 'disagree')",
