@@ -1,6 +1,46 @@
 //! Parsing of numbers given on command lines and in admin requests: plain integers
 //! (`1000000`, `1_000_000`) and exact scientific notation (`1e9`, `2.5e6`).
 
+/// How a range's end is written in messages: powers of two minus one by name, so that a
+/// reader sees at once which width the limit comes from.
+pub fn show_limit(v: i128) -> String {
+    match v {
+        v if v == i128::from(u64::MAX) => "2^64 − 1".into(),
+        v if v == i128::from(i64::MAX) => "2^63 − 1".into(),
+        v if v == i128::from(i64::MIN) => "−2^63".into(),
+        v => v.to_string(),
+    }
+}
+
+/// The one message for a number outside what a setting takes (both ends included).
+pub fn out_of_range(s: &str, lo: i128, hi: i128) -> String {
+    format!(
+        "{} is outside the supported range {} ..= {} (both ends included)",
+        s.trim(),
+        show_limit(lo),
+        show_limit(hi)
+    )
+}
+
+/// A parser for a count in `lo ..= hi` (same notation as [`parse_u64`]), for command-line
+/// flags: `value_parser = numarg::u64_in(1, 4096)`.
+pub fn u64_in(lo: u64, hi: u64) -> impl Fn(&str) -> Result<u64, String> + Clone + Send + Sync {
+    move |s| {
+        let v = parse_u64(s).map_err(|e| {
+            if s.trim().starts_with('-') || e.contains("outside the supported range") {
+                out_of_range(s, i128::from(lo), i128::from(hi))
+            } else {
+                e
+            }
+        })?;
+        if (lo..=hi).contains(&v) {
+            Ok(v)
+        } else {
+            Err(out_of_range(s, i128::from(lo), i128::from(hi)))
+        }
+    }
+}
+
 /// Parse a non-negative integer, accepting `1e9`-style input when the value is an exact integer.
 pub fn parse_u64(s: &str) -> Result<u64, String> {
     let t = s.trim().replace('_', "");
@@ -11,7 +51,7 @@ pub fn parse_u64(s: &str) -> Result<u64, String> {
     if t.bytes().all(|b| b.is_ascii_digit()) {
         return t
             .parse::<u64>()
-            .map_err(|_| format!("{s:?} exceeds the largest supported value {}", u64::MAX));
+            .map_err(|_| out_of_range(s, 0, i128::from(u64::MAX)));
     }
     let (mant, exp) = t.split_once(['e', 'E']).ok_or_else(bad)?;
     let exp: u32 = exp
@@ -38,10 +78,7 @@ pub fn parse_u64(s: &str) -> Result<u64, String> {
     // `frac` times 10^(exp − frac.len()), and u64::MAX has 20 digits.
     let significant = format!("{int}{frac}").trim_start_matches('0').len() as u64;
     if significant + u64::from(exp) - frac.len() as u64 > 20 {
-        return Err(format!(
-            "{s:?} exceeds the largest supported value {}",
-            u64::MAX
-        ));
+        return Err(out_of_range(s, 0, i128::from(u64::MAX)));
     }
     let digits = format!(
         "{int}{frac}{}",
@@ -53,7 +90,7 @@ pub fn parse_u64(s: &str) -> Result<u64, String> {
     }
     digits
         .parse::<u64>()
-        .map_err(|_| format!("{s:?} exceeds the largest supported value {}", u64::MAX))
+        .map_err(|_| out_of_range(s, 0, i128::from(u64::MAX)))
 }
 
 /// Parse a signed integer (`-42`, `1e3`, `-1e3`).
@@ -63,18 +100,24 @@ pub fn parse_i64(s: &str) -> Result<i64, String> {
         Some(b) => (true, b),
         None => (false, t),
     };
-    let v = parse_u64(body).map_err(|e| e.replace("non-negative ", ""))?;
+    let range = || out_of_range(s, i128::from(i64::MIN), i128::from(i64::MAX));
+    let v = parse_u64(body).map_err(|e| {
+        if e.contains("outside the supported range") {
+            range()
+        } else {
+            format!(
+                "{:?} is not an integer (examples: 114, -42, 1e6, -2.5e6)",
+                t
+            )
+        }
+    })?;
     if neg {
         if v > i64::MAX as u64 + 1 {
-            return Err(format!(
-                "{s:?} is below the smallest supported value {}",
-                i64::MIN
-            ));
+            return Err(range());
         }
         Ok((v as i128).wrapping_neg() as i64)
     } else {
-        i64::try_from(v)
-            .map_err(|_| format!("{s:?} exceeds the largest supported value {}", i64::MAX))
+        i64::try_from(v).map_err(|_| range())
     }
 }
 
@@ -129,12 +172,39 @@ mod tests {
             "-1e800000000",
         ] {
             let e = parse_i64(huge).unwrap_err();
-            assert!(e.contains("exceeds") || e.contains("below"), "{huge}: {e}");
+            assert!(
+                e.contains("outside the supported range −2^63 ..= 2^63 − 1"),
+                "{huge}: {e}"
+            );
         }
         assert_eq!(parse_u64("0e800000000").unwrap(), 0);
         assert_eq!(parse_u64("0.0e9").unwrap(), 0);
         assert_eq!(parse_u64("1.8446744073709551615e19").unwrap(), u64::MAX);
         assert_eq!(parse_u64("0.00001e10").unwrap(), 100_000);
         assert!(parse_i64_list("1,2,1").is_err());
+    }
+    #[test]
+    fn one_message_for_out_of_range() {
+        let p = u64_in(1, 64);
+        assert_eq!(p("1e1").unwrap(), 10);
+        for bad in ["0", "65", "-1", "1e99"] {
+            let e = p(bad).unwrap_err();
+            assert_eq!(
+                e,
+                format!("{bad} is outside the supported range 1 ..= 64 (both ends included)")
+            );
+        }
+        assert!(p("ten").unwrap_err().contains("not a non-negative integer"));
+        assert_eq!(
+            parse_u64("1e99").unwrap_err(),
+            "1e99 is outside the supported range 0 ..= 2^64 − 1 (both ends included)"
+        );
+        assert_eq!(
+            parse_i64("-1e99").unwrap_err(),
+            "-1e99 is outside the supported range −2^63 ..= 2^63 − 1 (both ends included)"
+        );
+        assert!(parse_i64("-x")
+            .unwrap_err()
+            .contains("\"-x\" is not an integer"));
     }
 }

@@ -123,10 +123,18 @@ fn exit_with(r: Result<i32>) -> Result<()> {
     }
 }
 
+/// `--k -3,30` and `--bound -5` reach our own parsers (which accept the one and explain why
+/// not the other) instead of being taken for unknown flags, in every subcommand.
+fn negatives_are_values(cmd: clap::Command) -> clap::Command {
+    cmd.allow_negative_numbers(true)
+        .mut_subcommands(negatives_are_values)
+}
+
 /// The command line, with the values of `serve --config FILE` as defaults under the
 /// environment and the flags.
 fn parse_cli(args: Vec<std::ffi::OsString>) -> Result<Cli> {
-    let cmd = config_file::apply_to(Cli::command(), "serve", &args, &config_file::process_env)?;
+    let cmd = negatives_are_values(Cli::command());
+    let cmd = config_file::apply_to(cmd, "serve", &args, &config_file::process_env)?;
     let m = cmd.get_matches_from(args);
     Ok(Cli::from_arg_matches(&m).unwrap_or_else(|e| e.exit()))
 }

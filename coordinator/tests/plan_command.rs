@@ -66,3 +66,29 @@ fn bad_input_fails_with_a_message() {
         assert!(err.starts_with("error: --"), "{args:?}: {err}");
     }
 }
+
+#[test]
+fn negative_numbers_are_values_with_our_own_messages() {
+    // a negative k is the mirror of −k (every coordinate negated), so it is planned
+    let o = plan(&["--k", "-3,30", "--bound", "1e6", "--json"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let j: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    let ks: Vec<i64> = j["targets"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| t["k"].as_i64().unwrap())
+        .collect();
+    assert!(ks.contains(&-3) && ks.contains(&30), "{ks:?}");
+    for bad in ["-5", "0", "1e99"] {
+        let o = plan(&["--k", "3", "--bound", bad]);
+        assert!(!o.status.success());
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert!(
+            err.contains(&format!(
+                "--bound: {bad} is outside the supported range 1 ..= 2^63 − 1 (both ends included)"
+            )),
+            "{bad}: {err}"
+        );
+    }
+}
