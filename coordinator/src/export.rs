@@ -16,7 +16,7 @@ use serde::Serialize;
 use std::io::Write;
 
 /// Rows read from the store per page, and so per chunk of output.
-pub const PAGE_ROWS: i64 = 1000;
+pub const PAGE_ROWS: i64 = 500;
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
