@@ -1376,7 +1376,9 @@ mod tests {
         let v = family_member(2, &Solution::new(7, -5, -6)).unwrap();
         assert_eq!((v.family, v.t.to_i64()), (Family::Verebrusov, Some(1)));
         assert_eq!(
-            family_member(-16, &Solution::new(-14, 10, 12)).unwrap().describe(),
+            family_member(-16, &Solution::new(-14, 10, 12))
+                .unwrap()
+                .describe(),
             "Verebrusov 1908, t = 1, scaled by 2, negated"
         );
         // Not family members (each verified exactly first): k = 3: (4, 4, −5) and (1, 1, 1)

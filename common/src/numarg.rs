@@ -105,7 +105,9 @@ pub struct KItem {
 /// count is checked before any range is expanded, so `1..1e18` allocates nothing.
 pub fn parse_k_set(s: &str, max: usize) -> Result<Vec<KItem>, String> {
     if s.trim().is_empty() {
-        return Err("the target set is empty: give K, K,K,… or A..B (e.g. 3,33,42 or 1..100)".into());
+        return Err(
+            "the target set is empty: give K, K,K,… or A..B (e.g. 3,33,42 or 1..100)".into(),
+        );
     }
     let mut out: Vec<KItem> = Vec::new();
     for part in s.split(',') {
@@ -120,14 +122,24 @@ pub fn parse_k_set(s: &str, max: usize) -> Result<Vec<KItem>, String> {
             }
             let n = (hi as i128 - lo as i128 + 1) as u128;
             if n + out.len() as u128 > max as u128 {
-                return Err(format!("{s:?} names more than {max} values; give fewer at a time"));
+                return Err(format!(
+                    "{s:?} names more than {max} values; give fewer at a time"
+                ));
             }
-            out.extend((lo..=hi).map(|k| KItem { k, from_range: true }));
+            out.extend((lo..=hi).map(|k| KItem {
+                k,
+                from_range: true,
+            }));
         } else {
             let k = parse_i64(part)?;
-            out.push(KItem { k, from_range: false });
+            out.push(KItem {
+                k,
+                from_range: false,
+            });
             if out.len() > max {
-                return Err(format!("{s:?} names more than {max} values; give fewer at a time"));
+                return Err(format!(
+                    "{s:?} names more than {max} values; give fewer at a time"
+                ));
             }
         }
     }
@@ -195,9 +207,14 @@ mod tests {
                 .collect()
         };
         assert_eq!(ks("3, 33,42"), vec![(3, false), (33, false), (42, false)]);
-        assert_eq!(ks("-2..1,7"), vec![(-2, true), (-1, true), (0, true), (1, true), (7, false)]);
+        assert_eq!(
+            ks("-2..1,7"),
+            vec![(-2, true), (-1, true), (0, true), (1, true), (7, false)]
+        );
         assert_eq!(ks("1e1..11"), vec![(10, true), (11, true)]);
-        for bad in ["", " ", "a", "3..1", "1..", "1,1", "1..3,2", "1..101", "1..1e18", "3,,4"] {
+        for bad in [
+            "", " ", "a", "3..1", "1..", "1,1", "1..3,2", "1..101", "1..1e18", "3,,4",
+        ] {
             assert!(parse_k_set(bad, 100).is_err(), "{bad:?}");
         }
         assert!(parse_k_set("1..100", 100).is_ok());

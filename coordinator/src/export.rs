@@ -89,9 +89,7 @@ struct CoverageOut<'a> {
     family_solutions: i64,
 }
 
-const SOLUTION_COLUMNS: [&str; 8] = [
-    "campaign", "k", "x", "y", "z", "unit", "found_at", "family",
-];
+const SOLUTION_COLUMNS: [&str; 8] = ["campaign", "k", "x", "y", "z", "unit", "found_at", "family"];
 const LEDGER_COLUMNS: [&str; 19] = [
     "campaign",
     "k",
@@ -153,9 +151,16 @@ pub struct Export<'a> {
 
 impl<'a> Export<'a> {
     /// Start the export of campaign `name` (an error when there is none).
-    pub async fn open(store: &'a Store, name: &str, what: What, format: Format) -> Result<Export<'a>> {
+    pub async fn open(
+        store: &'a Store,
+        name: &str,
+        what: What,
+        format: Format,
+    ) -> Result<Export<'a>> {
         let campaign = store.campaign(name).await?.ok_or_else(|| {
-            anyhow!("no campaign named {name:?} (list them with `cubehunt-coordinator campaign list`)")
+            anyhow!(
+                "no campaign named {name:?} (list them with `cubehunt-coordinator campaign list`)"
+            )
         })?;
         let targets = if what == What::Solutions {
             store.targets(campaign.id).await?
@@ -374,7 +379,10 @@ impl<'a> Export<'a> {
     async fn family_count(&self, target_id: i64, k: i64) -> Result<i64> {
         let (mut after, mut n) = (0, 0);
         loop {
-            let page = self.store.solutions_page(target_id, after, PAGE_ROWS).await?;
+            let page = self
+                .store
+                .solutions_page(target_id, after, PAGE_ROWS)
+                .await?;
             let Some(last) = page.last() else {
                 return Ok(n);
             };

@@ -71,8 +71,9 @@ impl Default for ModelCache {
 
 impl ModelCache {
     fn table(&self) -> &SeriesTable {
-        self.table
-            .get_or_init(|| SeriesTable::new(PRIME_BOUND).expect("the default prime bound is valid"))
+        self.table.get_or_init(|| {
+            SeriesTable::new(PRIME_BOUND).expect("the default prime bound is valid")
+        })
     }
 
     /// How many `(k, bound)` figures this cache has computed since it was made.
@@ -107,8 +108,7 @@ impl ModelCache {
             .par_iter()
             .map(|&(k, b)| ((k, b), figures(table, k, b)))
             .collect();
-        self.computed
-            .fetch_add(new.len() as u64, Ordering::Relaxed);
+        self.computed.fetch_add(new.len() as u64, Ordering::Relaxed);
         let mut map = self.figures.lock().unwrap_or_else(|e| e.into_inner());
         map.extend(new);
     }
@@ -175,7 +175,12 @@ pub struct TargetModel {
 }
 
 /// Found versus expected for `k` up to `bound`, given the stored solutions.
-pub fn target_model(k: i64, bound: u64, f: &Figures, solutions: &[Solution]) -> Option<TargetModel> {
+pub fn target_model(
+    k: i64,
+    bound: u64,
+    f: &Figures,
+    solutions: &[Solution],
+) -> Option<TargetModel> {
     let found = heuristic::count_for_model(k, solutions, bound);
     let fve = FoundVsExpected::new(found, f.expected_total, LEVEL).ok()?;
     Some(TargetModel {
@@ -279,7 +284,14 @@ mod tests {
             };
             let m = target_model(3, 100, &f, &[]).unwrap();
             assert_eq!((m.low, m.high), want, "λ = {lambda}");
-            assert_eq!(m.verdict, if want.0 > 0 { Verdict::Fewer } else { Verdict::AsExpected });
+            assert_eq!(
+                m.verdict,
+                if want.0 > 0 {
+                    Verdict::Fewer
+                } else {
+                    Verdict::AsExpected
+                }
+            );
         }
         assert!(m.note.unwrap().contains("Verebrusov"));
         let marks = family_marks(2, &sols);

@@ -58,7 +58,11 @@ pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()
                     let keys: Vec<(i64, u64)> = ts.iter().map(|(t, _)| (t.k, t.bound)).collect();
                     let t0 = std::time::Instant::now();
                     st.model.get(&keys).await;
-                    tracing::info!(targets = keys.len(), ms = t0.elapsed().as_secs_f64() * 1e3, "density model figures computed");
+                    tracing::info!(
+                        targets = keys.len(),
+                        ms = t0.elapsed().as_secs_f64() * 1e3,
+                        "density model figures computed"
+                    );
                 }
                 Err(e) => tracing::warn!(error = %e, "cannot list targets for the density model"),
             }

@@ -283,7 +283,10 @@ async fn a_clean_store_passes_and_solutions_are_the_known_ones() {
         .map(|r| serde_json::from_value(r["solution"].clone()).unwrap())
         .collect();
     got.sort(); // by k, then in the order they were found
-    assert!(rows.iter().all(|r| r["family"].is_null()), "k = 3 has no family");
+    assert!(
+        rows.iter().all(|r| r["family"].is_null()),
+        "k = 3 has no family"
+    );
     let known = vec![Solution::new(-5, 4, 4), Solution::new(1, 1, 1)];
     assert!(known.iter().all(|s| s.verify(3)));
     assert_eq!(got, known);
@@ -537,7 +540,14 @@ async fn certificates_verify_offline_and_bad_ones_fail() {
     let doc: Value = serde_json::from_str(&std::fs::read_to_string(&file).unwrap()).unwrap();
     for format in ["csv", "json"] {
         let (code, out, err) = run(&[
-            "export", "--data-dir", d, "--campaign", CAMPAIGN, "--what", "coverage", "--format",
+            "export",
+            "--data-dir",
+            d,
+            "--campaign",
+            CAMPAIGN,
+            "--what",
+            "coverage",
+            "--format",
             format,
         ]);
         assert_eq!(code, 0, "{err}");
@@ -549,8 +559,17 @@ async fn certificates_verify_offline_and_bad_ones_fail() {
             assert_eq!(
                 head,
                 [
-                    "campaign", "k", "bound", "units", "units_settled", "complete", "certified",
-                    "certified_bound", "certificate_root", "solutions", "family_solutions"
+                    "campaign",
+                    "k",
+                    "bound",
+                    "units",
+                    "units_settled",
+                    "complete",
+                    "certified",
+                    "certified_bound",
+                    "certificate_root",
+                    "solutions",
+                    "family_solutions"
                 ]
             );
             lines
@@ -565,8 +584,13 @@ async fn certificates_verify_offline_and_bad_ones_fail() {
                 .collect()
         };
         assert_eq!(rows.len(), 2, "{out}");
-        assert_eq!((rows[0]["k"].as_i64(), rows[1]["k"].as_i64()), (Some(3), Some(30)));
-        assert!(rows.iter().all(|r| r["bound"] == 60 && r["complete"] == true));
+        assert_eq!(
+            (rows[0]["k"].as_i64(), rows[1]["k"].as_i64()),
+            (Some(3), Some(30))
+        );
+        assert!(rows
+            .iter()
+            .all(|r| r["bound"] == 60 && r["complete"] == true));
         assert_eq!(rows[0]["certified"], true);
         assert_eq!(rows[0]["certificate_root"], doc["root"]);
         assert_eq!(rows[0]["solutions"], 2);

@@ -95,7 +95,10 @@ pub fn admitted_targets(ks: &KList, strict: bool) -> Result<(Vec<i64>, Vec<Skipp
             if v.len() > MAX_TARGETS {
                 return Err(AppError::bad_request(
                     "bad_target",
-                    format!("a campaign has 1 to {MAX_TARGETS} targets (got {})", v.len()),
+                    format!(
+                        "a campaign has 1 to {MAX_TARGETS} targets (got {})",
+                        v.len()
+                    ),
                 ));
             }
             let mut seen = Vec::new();

@@ -12,11 +12,11 @@ use super::{ApiResult, AppError, Shared};
 use crate::certify::{self, CertError};
 use crate::export::{Export, Format, What};
 use axum::body::{Body, Bytes, HttpBody};
-use hyper::body::Frame;
 use axum::extract::{Path, Query, State};
 use axum::http::header;
 use axum::response::{IntoResponse, Response};
 use cubehunt_common::numarg;
+use hyper::body::Frame;
 use serde::Deserialize;
 use serde_json::{json, Value};
 
@@ -114,13 +114,16 @@ pub async fn export(
             format!("no campaign named {name:?}"),
         ));
     }
-    let (tx, rx) = tokio::sync::mpsc::channel::<Result<Bytes, std::io::Error>>(EXPORT_CHUNKS_IN_FLIGHT);
+    let (tx, rx) =
+        tokio::sync::mpsc::channel::<Result<Bytes, std::io::Error>>(EXPORT_CHUNKS_IN_FLIGHT);
     let st2 = st.clone();
     tokio::spawn(async move {
         let mut e = match Export::open(&st2.store, &name, what, format).await {
             Ok(e) => e,
             Err(err) => {
-                let _ = tx.send(Err(std::io::Error::other(format!("{err:#}")))).await;
+                let _ = tx
+                    .send(Err(std::io::Error::other(format!("{err:#}"))))
+                    .await;
                 return;
             }
         };
@@ -144,11 +147,7 @@ pub async fn export(
         Format::Csv => "text/csv; charset=utf-8",
         Format::Json => "application/json",
     };
-    Ok((
-        [(header::CONTENT_TYPE, ct)],
-        Body::new(ChannelBody(rx)),
-    )
-        .into_response())
+    Ok(([(header::CONTENT_TYPE, ct)], Body::new(ChannelBody(rx))).into_response())
 }
 
 /// Pages of an export waiting in the channel between the store and the connection.
@@ -166,9 +165,7 @@ impl HttpBody for ChannelBody {
         mut self: std::pin::Pin<&mut Self>,
         cx: &mut std::task::Context<'_>,
     ) -> std::task::Poll<Option<Result<Frame<Bytes>, Self::Error>>> {
-        self.0
-            .poll_recv(cx)
-            .map(|o| o.map(|r| r.map(Frame::data)))
+        self.0.poll_recv(cx).map(|o| o.map(|r| r.map(Frame::data)))
     }
 }
 
