@@ -49,10 +49,15 @@ pub fn figures(table: &SeriesTable, k: i64, bound: u64) -> Figures {
     }
 }
 
+/// A target's key in the cache: `(k, bound)`.
+pub type Key = (i64, u64);
+/// Figures by key.
+pub type FigureMap = HashMap<Key, Figures>;
+
 /// Model figures kept in memory, one entry per `(k, bound)`.
 pub struct ModelCache {
     table: OnceLock<SeriesTable>,
-    figures: Mutex<HashMap<(i64, u64), Figures>>,
+    figures: Mutex<FigureMap>,
     /// Serialises the computation of missing entries (requests that miss wait, then find them).
     computing: tokio::sync::Mutex<()>,
     computed: AtomicU64,
@@ -81,7 +86,7 @@ impl ModelCache {
         self.computed.load(Ordering::Relaxed)
     }
 
-    fn lookup(&self, keys: &[(i64, u64)]) -> (HashMap<(i64, u64), Figures>, Vec<(i64, u64)>) {
+    fn lookup(&self, keys: &[Key]) -> (FigureMap, Vec<Key>) {
         let map = self.figures.lock().unwrap_or_else(|e| e.into_inner());
         let mut found = HashMap::new();
         let mut missing = Vec::new();
@@ -114,7 +119,7 @@ impl ModelCache {
     }
 
     /// The figures of every key, computing the missing ones off the async runtime.
-    pub async fn get(self: &Arc<Self>, keys: &[(i64, u64)]) -> HashMap<(i64, u64), Figures> {
+    pub async fn get(self: &Arc<Self>, keys: &[Key]) -> FigureMap {
         let (found, missing) = self.lookup(keys);
         if missing.is_empty() {
             return found;
@@ -126,10 +131,7 @@ impl ModelCache {
     }
 
     /// [`ModelCache::get`] for the targets of a campaign.
-    pub async fn for_targets(
-        self: &Arc<Self>,
-        targets: &[TargetRow],
-    ) -> HashMap<(i64, u64), Figures> {
+    pub async fn for_targets(self: &Arc<Self>, targets: &[TargetRow]) -> FigureMap {
         let keys: Vec<(i64, u64)> = targets.iter().map(|t| (t.k, t.bound)).collect();
         self.get(&keys).await
     }

@@ -138,7 +138,7 @@ pub fn admitted_targets(ks: &KList, strict: bool) -> Result<(Vec<i64>, Vec<Skipp
             "bad_target",
             format!(
                 "strict: {} value(s) of the ranges cannot be targets: k = {}{} ({}); nothing was created. \
-                 Leave out strict to skip them, or name other values",
+                 Without strict (--strict on the command line) they are skipped",
                 skipped.len(),
                 ks.join(", "),
                 if skipped.len() > 20 { ", …" } else { "" },
