@@ -13,8 +13,8 @@
 //! * [`predict`] — expected total, expected new in `(B0, B]`, decimal digits of `B` per new
 //!   solution; [`search_seconds`] — the kernel's cost model over a target's regions.
 //! * [`poisson_interval`], [`FoundVsExpected`] — comparing what was found with the model;
-//!   [`family_of`] — solutions of the parametric families for `k = 1, 2`, which the model
-//!   does not count; [`count_for_model`] — the found count to compare with the model.
+//!   [`family_member`] — solutions of the parametric families of `k = 1, 2` (scaled for
+//!   `k = ±m³, ±2m³`), which the model does not count; [`count_for_model`] — the found count to compare with the model.
 //!
 //! Pure functions: no I/O, no clocks. What this does not do: say anything certain. It is a
 //! conjecture-based forecast, useful for ranking targets, not a proof of anything.
@@ -650,7 +650,7 @@ pub fn poisson_interval(expected: f64, level: f64) -> Result<(u64, u64), String>
 }
 
 /// Where a found count sits against the model.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Verdict {
     /// Fewer than the interval's lower end.
@@ -662,7 +662,7 @@ pub enum Verdict {
 }
 
 /// Found versus expected for one target (or a sum of targets) at one confidence level.
-#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct FoundVsExpected {
     pub found: u64,
     pub expected: f64,
@@ -713,7 +713,7 @@ pub fn count_for_model(k: i64, solutions: &[Solution], bound: u64) -> u64 {
 // ---------------------------------------------------------------------------------------
 
 /// A polynomial family of solutions, which the density model does not count.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Family {
     /// `k = 1`: `(9t⁴, 3t − 9t⁴, 1 − 9t³)` (Mahler 1936).
@@ -753,6 +753,14 @@ impl Family {
             Family::Verebrusov => 2,
         }
     }
+
+    /// Who published it, and when: `Mahler 1936`, `Verebrusov 1908`.
+    pub fn source(self) -> &'static str {
+        match self {
+            Family::Mahler => "Mahler 1936",
+            Family::Verebrusov => "Verebrusov 1908",
+        }
+    }
 }
 
 /// Exact integer cube root of `n`, if `n` is a cube.
@@ -762,16 +770,91 @@ fn exact_cbrt(n: &Integer) -> Option<Integer> {
     (Integer::from((&r).pow(3u32)) == *n).then_some(r)
 }
 
-/// The family a solution of `x³ + y³ + z³ = k` belongs to, if any (only `k = 1, 2` have one
-/// here). Every coordinate is tried as the family's third entry, from which `t` is recovered
-/// exactly, and the other two are compared as a set.
+/// Where a solution sits in a parametric family: `family` at parameter `t`, every coordinate
+/// multiplied by `scale` (for `k = ±scale³ · family.k()`), and negated when `k < 0`.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct FamilyMember {
+    pub family: Family,
+    pub t: Integer,
+    pub scale: u64,
+    pub negated: bool,
+}
+
+impl FamilyMember {
+    /// `Mahler 1936, t = 3`, `Verebrusov 1908, t = −2, scaled by 2, negated`.
+    pub fn describe(&self) -> String {
+        let mut s = format!("{}, t = {}", self.family.source(), self.t);
+        if self.scale != 1 {
+            s.push_str(&format!(", scaled by {}", self.scale));
+        }
+        if self.negated {
+            s.push_str(", negated");
+        }
+        s
+    }
+}
+
+/// The families that can hold solutions for `k`, with their scale: `k = ±m³ · family.k()`.
+fn families_for(k: i64) -> Vec<(Family, u64)> {
+    let ak = k.unsigned_abs();
+    let mut out = Vec::new();
+    for fam in [Family::Mahler, Family::Verebrusov] {
+        let base = fam.k() as u64;
+        if ak == 0 || ak % base != 0 {
+            continue;
+        }
+        let q = Integer::from(ak / base);
+        if let Some(m) = exact_cbrt(&q).and_then(|m| m.to_u64()) {
+            out.push((fam, m));
+        }
+    }
+    out
+}
+
+/// Whether some solution for `k` can belong to a family (`k = ±m³` or `±2m³`).
+pub fn has_family(k: i64) -> bool {
+    !families_for(k).is_empty()
+}
+
+/// The family a solution of `x³ + y³ + z³ = k` belongs to, if any: Mahler's for `k = ±m³`,
+/// Verebrusov's for `k = ±2m³` (the families of `k = 1, 2` scaled by `m`, negated for
+/// negative `k`). The coordinates are divided by `m` and negated back; then every coordinate
+/// is tried as the family's third entry, from which `t` is recovered exactly (a cube root or a
+/// square root in big integers, no search), and the other two are compared as a set.
+pub fn family_member(k: i64, s: &Solution) -> Option<FamilyMember> {
+    for (fam, m) in families_for(k) {
+        let mi = Integer::from(m);
+        let mut v: Vec<Integer> = Vec::with_capacity(3);
+        for &c in &s.0 {
+            let c = Integer::from(c);
+            if !c.is_divisible(&mi) {
+                break;
+            }
+            let q = c / &mi;
+            v.push(if k < 0 { -q } else { q });
+        }
+        if v.len() != 3 {
+            continue;
+        }
+        if let Some(t) = base_family_t(fam, &v) {
+            return Some(FamilyMember {
+                family: fam,
+                t,
+                scale: m,
+                negated: k < 0,
+            });
+        }
+    }
+    None
+}
+
+/// [`family_member`]'s family alone.
 pub fn family_of(k: i64, s: &Solution) -> Option<Family> {
-    let fam = match k {
-        1 => Family::Mahler,
-        2 => Family::Verebrusov,
-        _ => return None,
-    };
-    let v: Vec<Integer> = s.0.iter().map(|&c| Integer::from(c)).collect();
+    family_member(k, s).map(|m| m.family)
+}
+
+/// `t` with `{v} = fam.member(t)` as sets, if there is one.
+fn base_family_t(fam: Family, v: &[Integer]) -> Option<Integer> {
     for i in 0..3 {
         let third = &v[i];
         let ts: Vec<Integer> = match fam {
@@ -801,7 +884,7 @@ pub fn family_of(k: i64, s: &Solution) -> Option<Family> {
         for t in ts {
             let m = fam.member(&t);
             if (m[0] == *a && m[1] == *b) || (m[0] == *b && m[1] == *a) {
-                return Some(fam);
+                return Some(t);
             }
         }
     }
@@ -1190,6 +1273,129 @@ mod tests {
         assert!(mixed.iter().all(|s| s.verify(1)));
         assert_eq!(count_for_model(1, &mixed, 200), 1);
         assert_eq!(count_for_model(1, &mixed, 50), 0); // min |·| of r is 64
+    }
+
+    /// Polynomials in t with big-integer coefficients (index = degree).
+    fn poly_mul(a: &[Integer], b: &[Integer]) -> Vec<Integer> {
+        let mut out = vec![Integer::new(); a.len() + b.len() - 1];
+        for (i, x) in a.iter().enumerate() {
+            for (j, y) in b.iter().enumerate() {
+                out[i + j] += Integer::from(x * y);
+            }
+        }
+        out
+    }
+
+    fn poly_cube_sum(ps: &[Vec<i64>]) -> Vec<Integer> {
+        let mut total: Vec<Integer> = vec![Integer::new(); 13];
+        for p in ps {
+            let p: Vec<Integer> = p.iter().map(|&c| Integer::from(c)).collect();
+            let cube = poly_mul(&poly_mul(&p, &p), &p);
+            for (i, c) in cube.into_iter().enumerate() {
+                total[i] += c;
+            }
+        }
+        while total.len() > 1 && total.last() == Some(&Integer::new()) {
+            total.pop();
+        }
+        total
+    }
+
+    #[test]
+    fn family_identities_hold_as_polynomials() {
+        // Symbolically: expanding the cubes of the coefficient lists must leave the constant
+        // polynomial k (Mahler 1936 and Verebrusov 1908, formulas from memory, expanded here).
+        let mahler = [vec![0, 0, 0, 0, 9], vec![0, 3, 0, 0, -9], vec![1, 0, 0, -9]];
+        assert_eq!(poly_cube_sum(&mahler), vec![Integer::from(1)]);
+        let verebrusov = [vec![1, 0, 0, 6], vec![1, 0, 0, -6], vec![0, 0, -6]];
+        assert_eq!(poly_cube_sum(&verebrusov), vec![Integer::from(2)]);
+        // and a near miss is not an identity (the check can fail)
+        let wrong = [vec![1, 0, 0, 6], vec![1, 0, 0, -6], vec![0, 0, 6]];
+        assert_ne!(poly_cube_sum(&wrong), vec![Integer::from(2)]);
+        // Family::member agrees with the coefficient lists at many t (big integers)
+        let eval = |p: &[i64], t: &Integer| -> Integer {
+            p.iter()
+                .rev()
+                .fold(Integer::new(), |acc, &c| acc * t + Integer::from(c))
+        };
+        for i in -300i64..=300 {
+            let t = Integer::from(i) * Integer::from(1_000_003) + i * i;
+            for (fam, ps) in [(Family::Mahler, &mahler), (Family::Verebrusov, &verebrusov)] {
+                let m = fam.member(&t);
+                for j in 0..3 {
+                    assert_eq!(m[j], eval(&ps[j], &t), "{fam:?} t = {t}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn family_membership_recovers_t_across_orders_signs_and_scales() {
+        // Every member for t in −200..=200 (i128 range), in every order, is recognised with
+        // its own t; negated for −k, scaled by m for k = m³ and 2m³; and a member of one
+        // target is not a member for its neighbours.
+        for fam in [Family::Mahler, Family::Verebrusov] {
+            for ti in -200i64..=200 {
+                let t = Integer::from(ti);
+                let m = fam.member(&t);
+                let v: Vec<i128> = m.iter().map(|c| c.to_i128().unwrap()).collect();
+                for (scale, neg) in [(1i128, false), (1, true), (2, false), (3, true)] {
+                    let k = (if neg { -1 } else { 1 }) * (scale as i64).pow(3) * fam.k();
+                    let w: Vec<i128> = v
+                        .iter()
+                        .map(|c| c * scale * if neg { -1 } else { 1 })
+                        .collect();
+                    let s = Solution::new(w[0], w[2], w[1]);
+                    if w.iter().any(|c| c.unsigned_abs() > 1u128 << 100) {
+                        continue;
+                    }
+                    assert!(s.verify(k), "{s} for {k}");
+                    let got = family_member(k, &s).unwrap_or_else(|| panic!("{s} for {k}"));
+                    assert_eq!(got.family, fam);
+                    assert_eq!(got.scale, scale as u64);
+                    assert_eq!(got.negated, neg);
+                    // t is recovered: the member at the recovered t is the same set
+                    let back = fam.member(&got.t);
+                    let mut b: Vec<Integer> = back
+                        .iter()
+                        .map(|c| Integer::from(c * scale) * if neg { -1 } else { 1 })
+                        .collect();
+                    b.sort();
+                    let sv: Vec<Integer> = s.0.iter().map(|&c| Integer::from(c)).collect();
+                    assert_eq!(b, sv, "{s}");
+                    assert_eq!(family_member(k + 1, &s), None);
+                    assert_eq!(family_member(-k, &s), None);
+                }
+            }
+        }
+        // t is what the formula says: 9³ + 10³ − 12³ = 1 is Mahler's t = −1 (9t⁴ = 9,
+        // 3t − 9t⁴ = −12, 1 − 9t³ = 10), and 7³ − 5³ − 6³ = 2 is Verebrusov's t = 1.
+        let m = family_member(1, &Solution::new(9, 10, -12)).unwrap();
+        assert_eq!((m.family, m.t.to_i64()), (Family::Mahler, Some(-1)));
+        assert_eq!(m.describe(), "Mahler 1936, t = -1");
+        let v = family_member(2, &Solution::new(7, -5, -6)).unwrap();
+        assert_eq!((v.family, v.t.to_i64()), (Family::Verebrusov, Some(1)));
+        assert_eq!(
+            family_member(-16, &Solution::new(-14, 10, 12))
+                .unwrap()
+                .describe(),
+            "Verebrusov 1908, t = 1, scaled by 2, negated"
+        );
+        // Not family members (each verified exactly first): k = 3: (4, 4, −5) and (1, 1, 1)
+        // (from memory, checked here); k = 2: 1214928³ + 3480205³ − 3528875³ (Heath-Brown,
+        // Lioen & te Riele 1993, from memory); k = ±1: 64³ + 94³ − 103³ (from memory).
+        for (k, s) in [
+            (3i64, Solution::new(4, 4, -5)),
+            (3, Solution::new(1, 1, 1)),
+            (2, Solution::new(1214928, 3480205, -3528875)),
+            (1, Solution::new(64, 94, -103)),
+            (-1, Solution::new(-64, -94, 103)),
+        ] {
+            assert!(s.verify(k), "{s} for {k}");
+            assert_eq!(family_member(k, &s), None, "{s} for {k}");
+        }
+        assert!(has_family(1) && has_family(-2) && has_family(16) && has_family(-27));
+        assert!(!has_family(3) && !has_family(0) && !has_family(4));
     }
 
     #[test]

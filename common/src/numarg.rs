@@ -134,6 +134,66 @@ pub fn parse_i64_list(s: &str) -> Result<Vec<i64>, String> {
     Ok(out)
 }
 
+/// One value of a target set, and whether it came from a range `A..B` (callers may skip
+/// inadmissible values of a range but refuse one named on its own).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct KItem {
+    pub k: i64,
+    pub from_range: bool,
+}
+
+/// Parse a target set: `K`, a list `K,K,…`, a range `A..B` (both ends included), or a
+/// comma-separated mix (`3,33,100..120`, negative values allowed: `-10..-1`). Refuses an
+/// empty set, junk, an empty range, a value named twice, and more than `max` values — the
+/// count is checked before any range is expanded, so `1..1e18` allocates nothing.
+pub fn parse_k_set(s: &str, max: usize) -> Result<Vec<KItem>, String> {
+    if s.trim().is_empty() {
+        return Err(
+            "the target set is empty: give K, K,K,… or A..B (e.g. 3,33,42 or 1..100)".into(),
+        );
+    }
+    let mut out: Vec<KItem> = Vec::new();
+    for part in s.split(',') {
+        let part = part.trim();
+        if let Some((a, b)) = part.split_once("..") {
+            let lo = parse_i64(a).map_err(|e| format!("range {part:?}: {e}"))?;
+            let hi = parse_i64(b).map_err(|e| format!("range {part:?}: {e}"))?;
+            if lo > hi {
+                return Err(format!(
+                    "range {part:?} is empty: its start {lo} is above its end {hi}"
+                ));
+            }
+            let n = (hi as i128 - lo as i128 + 1) as u128;
+            if n + out.len() as u128 > max as u128 {
+                return Err(format!(
+                    "{s:?} names more than {max} values; give fewer at a time"
+                ));
+            }
+            out.extend((lo..=hi).map(|k| KItem {
+                k,
+                from_range: true,
+            }));
+        } else {
+            let k = parse_i64(part)?;
+            out.push(KItem {
+                k,
+                from_range: false,
+            });
+            if out.len() > max {
+                return Err(format!(
+                    "{s:?} names more than {max} values; give fewer at a time"
+                ));
+            }
+        }
+    }
+    let mut seen: Vec<i64> = out.iter().map(|i| i.k).collect();
+    seen.sort_unstable();
+    if let Some(w) = seen.windows(2).find(|w| w[0] == w[1]) {
+        return Err(format!("{s:?} names {} twice", w[0]));
+    }
+    Ok(out)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -206,5 +266,28 @@ mod tests {
         assert!(parse_i64("-x")
             .unwrap_err()
             .contains("\"-x\" is not an integer"));
+    }
+    #[test]
+    fn target_sets_mix_lists_and_ranges() {
+        let ks = |s: &str| -> Vec<(i64, bool)> {
+            parse_k_set(s, 100)
+                .unwrap()
+                .iter()
+                .map(|i| (i.k, i.from_range))
+                .collect()
+        };
+        assert_eq!(ks("3, 33,42"), vec![(3, false), (33, false), (42, false)]);
+        assert_eq!(
+            ks("-2..1,7"),
+            vec![(-2, true), (-1, true), (0, true), (1, true), (7, false)]
+        );
+        assert_eq!(ks("1e1..11"), vec![(10, true), (11, true)]);
+        for bad in [
+            "", " ", "a", "3..1", "1..", "1,1", "1..3,2", "1..101", "1..1e18", "3,,4",
+        ] {
+            assert!(parse_k_set(bad, 100).is_err(), "{bad:?}");
+        }
+        assert!(parse_k_set("1..100", 100).is_ok());
+        assert!(parse_k_set("1..100,200", 100).is_err());
     }
 }

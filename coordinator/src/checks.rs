@@ -107,7 +107,10 @@ pub struct ExportArgs {
     /// Campaign name.
     #[arg(long)]
     pub campaign: String,
-    /// What to export: the solutions, or the per-unit ledger (who computed what, when, with which digest).
+    /// What to export: the solutions (each with its parametric family, if any), the per-unit
+    /// ledger (who computed what, when, with which digest), or the coverage table (one line
+    /// per target, those without solutions too: bound, units settled, complete, certified,
+    /// the certificate's Merkle root, solution counts).
     #[arg(long, value_enum)]
     pub what: What,
     /// Output format.

@@ -5,6 +5,7 @@ use crate::api::monitor::CampaignView;
 use crate::datadir::DataDir;
 use anyhow::{bail, Context, Result};
 use clap::{Args, Subcommand};
+use cubehunt_common::heuristic::Verdict;
 use cubehunt_common::protocol::ApiError;
 use std::path::PathBuf;
 
@@ -31,12 +32,21 @@ pub struct CampaignArgs {
 #[derive(Debug, Subcommand)]
 pub enum CampaignCommand {
     /// Create a campaign: plan and sign every unit of every target.
+    #[command(
+        long_about = "Create a campaign: plan and sign every unit of every target.\n\n\
+--k takes what `plan --k` takes: K, a list K,K,…, a range A..B (both ends included, negative \
+values allowed), or a mix (e.g. 3,33,100..200). A value of a range that cannot be a target — \
+k ≡ ±4 (mod 9), which has no solutions; a cube, whose trivial family (c, t, −t) is infinite; \
+or 0 — is skipped, and the skipped values are listed with the reason. A value named on its \
+own that cannot be a target is refused. With --strict, a range holding such a value is \
+refused too, naming it, and nothing is created."
+    )]
     Create {
         /// 1–64 characters of A-Z a-z 0-9 . _ -
         #[arg(long)]
         name: String,
-        /// Targets, comma-separated (e.g. 114,390).
-        #[arg(long = "k", value_name = "K,K,...")]
+        /// Targets: K, K,K,…, A..B or a mix (e.g. 114,390 or 100..200,390).
+        #[arg(long = "k", value_name = "K[,K…|A..B]")]
         ks: String,
         /// Bound on the smallest coordinate (e.g. 1e12).
         #[arg(long)]
@@ -44,6 +54,10 @@ pub enum CampaignCommand {
         /// Planning goal: seconds of one reference core per unit.
         #[arg(long, default_value_t = crate::api::admin::DEFAULT_UNIT_SECONDS)]
         unit_seconds: f64,
+        /// Refuse the whole request if a range holds a k that cannot be a target (±4 mod 9,
+        /// a cube, 0) instead of skipping it.
+        #[arg(long)]
+        strict: bool,
         /// Print the campaign as JSON.
         #[arg(long)]
         json: bool,
@@ -53,7 +67,8 @@ pub enum CampaignCommand {
         #[arg(long)]
         json: bool,
     },
-    /// Show one campaign: state, progress per target, solutions.
+    /// Show one campaign: state, progress per target, found versus expected (density
+    /// model), solutions (family members marked).
     Show {
         name: String,
         #[arg(long)]
@@ -138,6 +153,12 @@ fn print_campaign(v: &CampaignView) {
         "campaign {}  state {}  bound {}  kernel {}",
         v.name, v.state, v.bound, v.kernel
     );
+    if !v.skipped.is_empty() {
+        println!("skipped {} value(s) of k:", v.skipped.len());
+        for s in &v.skipped {
+            println!("  k = {}: {}", s.k, s.reason);
+        }
+    }
     let eta = |e: Option<f64>| e.map(|s| format!("{s:.0} s")).unwrap_or_else(|| "-".into());
     for t in &v.targets {
         let u = &t.progress.units;
@@ -152,10 +173,40 @@ fn print_campaign(v: &CampaignView) {
             eta(t.progress.eta_s),
             t.solutions.len()
         );
+        if let Some(m) = &t.model {
+            println!(
+                "      found {} vs expected {:.3} ({:.0} % interval {}..={}, {})  S(k) {:.5}{}",
+                m.found,
+                m.expected_total,
+                v.model.level * 100.0,
+                m.low,
+                m.high,
+                match m.verdict {
+                    Verdict::Fewer => "fewer than expected",
+                    Verdict::AsExpected => "as expected",
+                    Verdict::More => "more than expected",
+                },
+                m.singular_series,
+                if m.not_counted > 0 {
+                    format!("  ({} more not counted: families)", m.not_counted)
+                } else {
+                    String::new()
+                }
+            );
+        }
         for s in &t.solutions {
             let [a, b, c] = s.to_strings();
-            println!("      {a} {b} {c}");
+            match t.families.iter().find(|f| f.solution == *s) {
+                Some(f) => println!("      {a} {b} {c}  [family: {}]", f.description),
+                None => println!("      {a} {b} {c}"),
+            }
         }
+    }
+    if v.targets.iter().any(|t| t.model.is_some()) {
+        println!(
+            "found vs expected: {}; interval: {}.",
+            v.model.counting, v.model.interval
+        );
     }
 }
 
@@ -177,6 +228,7 @@ pub async fn run(a: CampaignArgs) -> Result<()> {
             ks,
             bound,
             unit_seconds,
+            strict,
             json,
         } => {
             let body = CreateCampaign {
@@ -184,6 +236,7 @@ pub async fn run(a: CampaignArgs) -> Result<()> {
                 ks: KList::Text(ks),
                 bound: Count::Text(bound),
                 unit_seconds: Some(unit_seconds),
+                strict,
             };
             let v = c
                 .call(

@@ -83,46 +83,19 @@ pub struct Forecast {
     pub skipped: Vec<Skipped>,
 }
 
-/// Parse `K`, `K,K,…`, `A..B` or a comma-separated mix; refuses repeats and more than
-/// [`MAX_TARGETS`] values (before allocating them).
+/// Parse `K`, `K,K,…`, `A..B` or a comma-separated mix ([`numarg::parse_k_set`], the one
+/// parser `campaign create --k` uses too); refuses repeats and more than [`MAX_TARGETS`]
+/// values (before allocating them).
 pub fn parse_targets(s: &str) -> Result<Vec<i64>> {
-    let mut out: Vec<i64> = Vec::new();
-    if s.trim().is_empty() {
-        bail!("--k is empty: give K, K,K,… or A..B (e.g. --k 3,33,42 or --k 1..100)");
-    }
-    for part in s.split(',') {
-        let part = part.trim();
-        if let Some((a, b)) = part.split_once("..") {
-            let lo =
-                numarg::parse_i64(a).map_err(|e| anyhow::anyhow!("--k range {part:?}: {e}"))?;
-            let hi =
-                numarg::parse_i64(b).map_err(|e| anyhow::anyhow!("--k range {part:?}: {e}"))?;
-            if lo > hi {
-                bail!("--k range {part:?} is empty: its start {lo} is above its end {hi}");
-            }
-            let n = (hi as i128 - lo as i128 + 1) as u128;
-            if n + out.len() as u128 > MAX_TARGETS as u128 {
-                bail!("--k {s:?} names more than {MAX_TARGETS} values; plan fewer at a time");
-            }
-            out.extend(lo..=hi);
-        } else {
-            let k = numarg::parse_i64(part).map_err(|e| anyhow::anyhow!("--k: {e}"))?;
-            out.push(k);
-            if out.len() > MAX_TARGETS {
-                bail!("--k {s:?} names more than {MAX_TARGETS} values; plan fewer at a time");
-            }
-        }
-    }
-    let mut seen = out.clone();
-    seen.sort_unstable();
-    if let Some(w) = seen.windows(2).find(|w| w[0] == w[1]) {
-        bail!("--k {s:?} names {} twice", w[0]);
-    }
-    Ok(out)
+    Ok(numarg::parse_k_set(s, MAX_TARGETS)
+        .map_err(|e| anyhow::anyhow!("--k: {e}"))?
+        .into_iter()
+        .map(|i| i.k)
+        .collect())
 }
 
 /// Why a value of `k` is not planned, or `None` when it is planned.
-fn skip_reason(k: i64) -> Option<String> {
+pub fn skip_reason(k: i64) -> Option<String> {
     match kernel::check_target_allowing_cube(k) {
         Ok(_) => None,
         Err(KernelError::NoSolutionsMod9 { r, .. }) => Some(format!(
@@ -135,7 +108,7 @@ fn skip_reason(k: i64) -> Option<String> {
 }
 
 /// What the model does not count for this `k`, if anything.
-fn note(k: i64) -> Option<String> {
+pub fn note(k: i64) -> Option<String> {
     let ak = k.unsigned_abs() as i64;
     let mut notes = Vec::new();
     if let Some(c) = kernel::cube_root(ak) {

@@ -8,6 +8,7 @@
 //! * [`checker`] — the coordinator's own computations (spot checks, rechecks).
 //! * [`plan`] — cutting a target's regions into units with the kernel's cost model.
 //! * [`forecast`] — the `plan` command: expected yield and cost per target (density model).
+//! * [`model`] — the density model's figures per running target (found vs expected), cached.
 //! * [`api`] — the HTTP service (axum): admin, worker protocol, monitoring, errors.
 //! * [`datadir`] — the data directory: database, coordinator key, admin token.
 //! * [`config`] — service settings.
@@ -35,6 +36,7 @@ pub mod demo;
 pub mod export;
 pub mod forecast;
 pub mod lifecycle;
+pub mod model;
 pub mod plan;
 pub mod serve;
 pub mod store;

@@ -53,7 +53,7 @@ enum Command {
     Certificate(checks::CertificateArgs),
     /// Check a certificate offline (no database, no network). Exit 0 only when it holds.
     VerifyCertificate(checks::VerifyArgs),
-    /// Export a campaign's solutions or its per-unit ledger as CSV or JSON.
+    /// Export a campaign's solutions, per-unit ledger or coverage table as CSV or JSON.
     Export(checks::ExportArgs),
     /// Run the whole system on this machine: a coordinator, local workers, a small campaign,
     /// its certificates and the audit (an invented scenario; a couple of minutes).

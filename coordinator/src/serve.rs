@@ -48,6 +48,26 @@ pub async fn run(dir: DataDir, listen: &str, config: ServiceConfig) -> Result<()
         })
     };
 
+    {
+        // The density model's figures of every stored target, once, in the background (the
+        // views compute any they still miss on first use).
+        let st = state.clone();
+        tokio::spawn(async move {
+            match st.store.audit_targets().await {
+                Ok(ts) => {
+                    let keys: Vec<(i64, u64)> = ts.iter().map(|(t, _)| (t.k, t.bound)).collect();
+                    let t0 = std::time::Instant::now();
+                    st.model.get(&keys).await;
+                    tracing::info!(
+                        targets = keys.len(),
+                        ms = t0.elapsed().as_secs_f64() * 1e3,
+                        "density model figures computed"
+                    );
+                }
+                Err(e) => tracing::warn!(error = %e, "cannot list targets for the density model"),
+            }
+        });
+    }
     let checker = crate::checker::spawn(state.clone(), config.checker_threads as usize);
     if checker.is_none() {
         tracing::warn!("checker_threads = 0: spot checks and rechecks wait for trusted workers, and so do certificates");

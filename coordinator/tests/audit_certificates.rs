@@ -13,7 +13,7 @@ use cubehunt_coordinator::datadir::DataDir;
 use cubehunt_coordinator::plan::{plan_target, PlanSettings};
 use cubehunt_coordinator::store::workers::Call;
 use cubehunt_coordinator::store::{IncomingReport, LeasePolicy, NewCampaign, NewWorker, Store};
-use serde_json::Value;
+use serde_json::{json, Value};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
@@ -278,10 +278,15 @@ async fn a_clean_store_passes_and_solutions_are_the_known_ones() {
     ]);
     assert_eq!(code, 0);
     let rows: Vec<Value> = serde_json::from_str(&out).unwrap();
-    let got: Vec<Solution> = rows
+    let mut got: Vec<Solution> = rows
         .iter()
         .map(|r| serde_json::from_value(r["solution"].clone()).unwrap())
         .collect();
+    got.sort(); // by k, then in the order they were found
+    assert!(
+        rows.iter().all(|r| r["family"].is_null()),
+        "k = 3 has no family"
+    );
     let known = vec![Solution::new(-5, 4, 4), Solution::new(1, 1, 1)];
     assert!(known.iter().all(|s| s.verify(3)));
     assert_eq!(got, known);
@@ -529,6 +534,70 @@ async fn certificates_verify_offline_and_bad_ones_fail() {
         text.contains("min(|x|,|y|,|z|) ≤ 60") && text.contains("-5, 4, 4"),
         "{text}"
     );
+    // The coverage table lists both targets, the one without solutions too; k = 3 is
+    // certified with the root of the certificate just issued, k = 30 is complete but has no
+    // certificate yet.
+    let doc: Value = serde_json::from_str(&std::fs::read_to_string(&file).unwrap()).unwrap();
+    for format in ["csv", "json"] {
+        let (code, out, err) = run(&[
+            "export",
+            "--data-dir",
+            d,
+            "--campaign",
+            CAMPAIGN,
+            "--what",
+            "coverage",
+            "--format",
+            format,
+        ]);
+        assert_eq!(code, 0, "{err}");
+        let rows: Vec<Value> = if format == "json" {
+            serde_json::from_str(&out).unwrap()
+        } else {
+            let mut lines = out.lines();
+            let head: Vec<&str> = lines.next().unwrap().split(',').collect();
+            assert_eq!(
+                head,
+                [
+                    "campaign",
+                    "k",
+                    "bound",
+                    "units",
+                    "units_settled",
+                    "complete",
+                    "certified",
+                    "certified_bound",
+                    "certificate_root",
+                    "solutions",
+                    "family_solutions"
+                ]
+            );
+            lines
+                .map(|l| {
+                    let f: Vec<&str> = l.split(',').collect();
+                    assert_eq!(f.len(), head.len(), "{l}");
+                    json!({"k": f[1].parse::<i64>().unwrap(), "bound": f[2].parse::<u64>().unwrap(),
+                        "complete": f[5] == "true", "certified": f[6] == "true",
+                        "certificate_root": if f[8].is_empty() { Value::Null } else { json!(f[8]) },
+                        "solutions": f[9].parse::<i64>().unwrap()})
+                })
+                .collect()
+        };
+        assert_eq!(rows.len(), 2, "{out}");
+        assert_eq!(
+            (rows[0]["k"].as_i64(), rows[1]["k"].as_i64()),
+            (Some(3), Some(30))
+        );
+        assert!(rows
+            .iter()
+            .all(|r| r["bound"] == 60 && r["complete"] == true));
+        assert_eq!(rows[0]["certified"], true);
+        assert_eq!(rows[0]["certificate_root"], doc["root"]);
+        assert_eq!(rows[0]["solutions"], 2);
+        assert_eq!(rows[1]["certified"], false);
+        assert!(rows[1]["certificate_root"].is_null());
+        assert_eq!(rows[1]["solutions"], 0);
+    }
     let pubkey = std::fs::read_to_string(b.dir.join("coordinator.pub"))
         .unwrap()
         .trim()

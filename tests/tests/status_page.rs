@@ -259,6 +259,18 @@ fn status_page_shows_what_the_api_says() -> Result<()> {
                 &format!("{ts}/solutions"),
                 &Value::from(t["solutions"].as_array().unwrap().len()),
             )?;
+            // Found versus expected, as the API states it.
+            let m = &t["model"];
+            check_count(&shown, &format!("{ts}/model_found"), &m["found"])?;
+            check_count(&shown, &format!("{ts}/model_low"), &m["low"])?;
+            check_count(&shown, &format!("{ts}/model_high"), &m["high"])?;
+            let e = get(&shown, &format!("{ts}/model_expected"))?;
+            let ev: f64 = e.value.parse().context("model_expected value")?;
+            anyhow::ensure!(
+                (ev - m["expected_total"].as_f64().unwrap()).abs() < 1e-9,
+                "{ts}: expected {ev} vs the API's {}",
+                m["expected_total"]
+            );
             for s in t["solutions"].as_array().unwrap() {
                 let parts: Vec<&str> = s
                     .as_array()

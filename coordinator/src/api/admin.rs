@@ -2,7 +2,7 @@
 //! extend; invitations; marking workers trusted; quarantining a worker by hand.
 
 use super::error::parse_json;
-use super::monitor::{all_views, campaign_view, find_campaign, CampaignView};
+use super::monitor::{all_views, campaign_view, find_campaign, CampaignView, Skipped};
 use super::{auth, check_name, ApiResult, AppError, AppState, Shared};
 use crate::plan::{plan_target, PlanError, PlanSettings};
 use crate::store::TargetPlan;
@@ -39,7 +39,8 @@ impl Count {
     }
 }
 
-/// Targets as a JSON list of integers or a string `"114,390"`.
+/// Targets as a JSON list of integers or a string: `"114,390"`, a range `"100..200"` or a
+/// mix `"3,33,100..200"` (the parser of `plan --k`, [`numarg::parse_k_set`]).
 #[derive(Clone, Debug, Serialize, Deserialize)]
 #[serde(untagged)]
 pub enum KList {
@@ -56,6 +57,106 @@ pub struct CreateCampaign {
     pub bound: Count,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub unit_seconds: Option<f64>,
+    /// Refuse the whole request when a range holds a k that cannot be a target (instead of
+    /// skipping it with a note in the answer's `skipped`).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub strict: bool,
+}
+
+/// Most values a range in a creation may name before inadmissible ones are skipped (the
+/// admitted targets are then limited to [`MAX_TARGETS`]).
+pub const MAX_NAMED: usize = 20_000;
+
+/// Why `k` cannot be a target, when it is one a range may skip: `k ≡ ±4 (mod 9)`, a cube,
+/// or 0 ([`kernel::check_target`]). `None` when it can, or when the refusal is not one to
+/// skip (|k| beyond the supported range).
+fn skippable(k: i64) -> Option<String> {
+    match kernel::check_target(k) {
+        Err(
+            e @ (kernel::KernelError::NoSolutionsMod9 { .. }
+            | kernel::KernelError::Cube { .. }
+            | kernel::KernelError::Zero),
+        ) => Some(match e {
+            kernel::KernelError::Cube { c, .. } => format!(
+                "k = {k} is a cube ({c}³): the infinite trivial family ({c}, t, −t) makes it no target"
+            ),
+            other => crate::forecast::skip_reason(k).unwrap_or_else(|| other.to_string()),
+        }),
+        _ => None,
+    }
+}
+
+/// The targets of a creation: values named on their own must be valid targets; values of a
+/// range that cannot be targets are skipped (returned with the reason), or refused with
+/// `strict`.
+pub fn admitted_targets(ks: &KList, strict: bool) -> Result<(Vec<i64>, Vec<Skipped>), AppError> {
+    let items: Vec<numarg::KItem> = match ks {
+        KList::List(v) => {
+            if v.len() > MAX_TARGETS {
+                return Err(AppError::bad_request(
+                    "bad_target",
+                    format!(
+                        "a campaign has 1 to {MAX_TARGETS} targets (got {})",
+                        v.len()
+                    ),
+                ));
+            }
+            let mut seen = Vec::new();
+            for k in v {
+                if seen.contains(k) {
+                    return Err(AppError::bad_request(
+                        "bad_target",
+                        format!("k = {k} appears twice"),
+                    ));
+                }
+                seen.push(*k);
+            }
+            seen.into_iter()
+                .map(|k| numarg::KItem {
+                    k,
+                    from_range: false,
+                })
+                .collect()
+        }
+        KList::Text(s) => numarg::parse_k_set(s, MAX_NAMED).map_err(bad("bad_target"))?,
+    };
+    let mut admitted = Vec::new();
+    let mut skipped = Vec::new();
+    for it in items {
+        match (skippable(it.k), it.from_range) {
+            (Some(reason), true) => skipped.push(Skipped { k: it.k, reason }),
+            _ => {
+                kernel::check_target(it.k)
+                    .map_err(|e| AppError::bad_request("bad_target", e.to_string()))?;
+                admitted.push(it.k);
+            }
+        }
+    }
+    if strict && !skipped.is_empty() {
+        let ks: Vec<String> = skipped.iter().take(20).map(|s| s.k.to_string()).collect();
+        return Err(AppError::bad_request(
+            "bad_target",
+            format!(
+                "strict: {} value(s) of the ranges cannot be targets: k = {}{} ({}); nothing was created. \
+                 Without strict (--strict on the command line) they are skipped",
+                skipped.len(),
+                ks.join(", "),
+                if skipped.len() > 20 { ", …" } else { "" },
+                skipped[0].reason
+            ),
+        ));
+    }
+    if admitted.is_empty() || admitted.len() > MAX_TARGETS {
+        return Err(AppError::bad_request(
+            "bad_target",
+            format!(
+                "a campaign has 1 to {MAX_TARGETS} targets (got {} after skipping {} that cannot be targets)",
+                admitted.len(),
+                skipped.len()
+            ),
+        ));
+    }
+    Ok((admitted, skipped))
 }
 
 #[derive(Clone, Debug, Serialize, Deserialize)]
@@ -142,34 +243,7 @@ pub async fn create(
     let body = body?;
     let req: CreateCampaign = parse_json(&body, "campaign")?;
     check_name("campaign name", &req.name).map_err(bad("bad_name"))?;
-    let ks = match &req.ks {
-        KList::List(v) => {
-            let mut seen = Vec::new();
-            for k in v {
-                if seen.contains(k) {
-                    return Err(AppError::bad_request(
-                        "bad_target",
-                        format!("k = {k} appears twice"),
-                    ));
-                }
-                seen.push(*k);
-            }
-            seen
-        }
-        KList::Text(s) => numarg::parse_i64_list(s).map_err(bad("bad_target"))?,
-    };
-    if ks.is_empty() || ks.len() > MAX_TARGETS {
-        return Err(AppError::bad_request(
-            "bad_target",
-            format!(
-                "a campaign has 1 to {MAX_TARGETS} targets (got {})",
-                ks.len()
-            ),
-        ));
-    }
-    for &k in &ks {
-        kernel::check_target(k).map_err(|e| AppError::bad_request("bad_target", e.to_string()))?;
-    }
+    let (ks, skipped) = admitted_targets(&req.ks, req.strict)?;
     let bound = check_bound(req.bound.value("bound").map_err(bad("bad_bound"))?)?;
     let unit_seconds = req.unit_seconds.unwrap_or(DEFAULT_UNIT_SECONDS);
     if !(unit_seconds.is_finite() && unit_seconds > 0.0 && unit_seconds <= 1e9) {
@@ -184,7 +258,10 @@ pub async fn create(
             ),
         ));
     }
+    let keys: Vec<(i64, u64)> = ks.iter().map(|&k| (k, bound)).collect();
     let plans = plan_all(&st, ks, 0, bound, unit_seconds).await?;
+    // The model's figures of the new targets, once, now (the views then find them).
+    st.model.get(&keys).await;
     let new = crate::store::NewCampaign {
         name: req.name.clone(),
         kernel: KERNEL_VERSION.to_string(),
@@ -197,8 +274,10 @@ pub async fn create(
         .store
         .create_campaign(&new, &plans, &sign, crate::now())
         .await?;
-    tracing::info!(campaign = %c.name, bound, targets = plans.len(), units = plans.iter().map(|p| p.units.len()).sum::<usize>(), "campaign created");
-    Ok(Json(campaign_view(&st, &c).await?))
+    tracing::info!(campaign = %c.name, bound, targets = plans.len(), skipped = skipped.len(), units = plans.iter().map(|p| p.units.len()).sum::<usize>(), "campaign created");
+    let mut view = campaign_view(&st, &c).await?;
+    view.skipped = skipped;
+    Ok(Json(view))
 }
 
 pub async fn list(
@@ -246,7 +325,9 @@ pub async fn action(
                 ));
             }
             let ks: Vec<i64> = st.store.targets(c.id).await?.iter().map(|t| t.k).collect();
+            let keys: Vec<(i64, u64)> = ks.iter().map(|&k| (k, b2)).collect();
             let plans = plan_all(&st, ks, c.bound, b2, c.unit_seconds).await?;
+            st.model.get(&keys).await;
             let sign = signer(&st);
             let c2 = st
                 .store

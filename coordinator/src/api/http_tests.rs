@@ -1745,3 +1745,310 @@ async fn bad_input_is_refused_with_a_reason_and_changes_nothing() {
     }
     assert_eq!(before, after);
 }
+
+/// A campaign whose one small-region unit (|z| ≤ 1) is settled by two owners reporting `sols`.
+async fn settled_small(e: &Env, name: &str, k: i64, sols: Vec<Solution>) {
+    e.seed(
+        name,
+        k,
+        &[Rect {
+            region: Region::Small,
+            d_lo: 0,
+            d_hi: 0,
+            z_lo: 0,
+            z_hi: 1,
+        }],
+    )
+    .await;
+    let (a, b) = (
+        e.enrol(&format!("{name}-a")).await,
+        e.enrol(&format!("{name}-b")).await,
+    );
+    let ga = e.lease(&a).await.unwrap();
+    let gb = e.lease(&b).await.unwrap();
+    assert_eq!(e.report(&a, &ga, 0, sols.clone()).await.0, StatusCode::OK);
+    let (s, v) = e.report(&b, &gb, 0, sols).await;
+    assert_eq!(
+        (s, v["unit_state"].clone()),
+        (StatusCode::OK, json!("settled")),
+        "{v}"
+    );
+}
+
+#[tokio::test]
+async fn targets_carry_found_vs_expected_computed_once_and_families_are_marked() {
+    // 2 = 0³ + 1³ + 1³ is Verebrusov's family at t = 0; 3 = 1³ + 1³ + 1³ is in no family
+    // (both verified exactly below). One store each (their units would compete for leases).
+    let v2 = Solution::new(0, 1, 1);
+    let v3 = Solution::new(1, 1, 1);
+    assert!(v2.verify(2) && v3.verify(3));
+    let e2 = env(plain()).await;
+    let e3 = env(plain()).await;
+    settled_small(&e2, "two", 2, vec![v2]).await;
+    settled_small(&e3, "three", 3, vec![v3]).await;
+    let plan = crate::forecast::forecast(&[2, 3], 0, 100, crate::model::PRIME_BOUND).unwrap();
+    let want = |k: i64| plan.targets.iter().find(|t| t.k == k).unwrap().clone();
+    for _round in 0..3 {
+        for (e, name, k, found, not_counted) in [(&e2, "two", 2, 0, 1), (&e3, "three", 3, 1, 0)] {
+            let (s, public) = e.get(&format!("/api/v1/campaigns/{name}")).await;
+            assert_eq!(s, StatusCode::OK, "{public}");
+            let (s, admin) = e
+                .admin(
+                    "GET",
+                    &format!("/api/v1/admin/campaigns/{name}"),
+                    Some(TOKEN),
+                    json!({}),
+                )
+                .await;
+            assert_eq!(s, StatusCode::OK, "{admin}");
+            for v in [&public, &admin] {
+                let m = &v["targets"][0]["model"];
+                // the figures of `plan` at the same bound and truncation
+                assert_eq!(
+                    m["singular_series"].as_f64().unwrap(),
+                    want(k).singular_series
+                );
+                assert_eq!(
+                    m["expected_total"].as_f64().unwrap(),
+                    want(k).expected_total
+                );
+                assert_eq!(
+                    (m["found"].as_u64(), m["not_counted"].as_u64()),
+                    (Some(found), Some(not_counted)),
+                    "{m}"
+                );
+                let (lo, hi) =
+                    cubehunt_common::heuristic::poisson_interval(want(k).expected_total, 0.95)
+                        .unwrap();
+                assert_eq!(
+                    (m["low"].as_u64(), m["high"].as_u64()),
+                    (Some(lo), Some(hi))
+                );
+                assert!(["fewer", "as_expected", "more"].contains(&m["verdict"].as_str().unwrap()));
+                assert_eq!(v["model"]["level"], 0.95);
+                assert!(v["model"]["interval"].as_str().unwrap().contains("Poisson"));
+            }
+            let fam = &public["targets"][0]["families"];
+            if k == 2 {
+                assert_eq!(fam[0]["solution"], json!(["0", "1", "1"]));
+                assert_eq!(fam[0]["family"], "verebrusov");
+                assert_eq!(fam[0]["t"], "0");
+                assert_eq!(fam[0]["description"], "Verebrusov 1908, t = 0");
+            } else {
+                assert_eq!(fam, &json!([]));
+            }
+        }
+    }
+    // Three rounds of two views each: the model ran once per (k, bound).
+    assert_eq!((e2.st.model.computed(), e3.st.model.computed()), (1, 1));
+    let e = &e2;
+    let (_, sols) = e.get("/api/v1/campaigns/two/solutions").await;
+    assert_eq!(sols[0]["family"], "Verebrusov 1908, t = 0");
+    let (_, sols) = e3.get("/api/v1/campaigns/three/solutions").await;
+    assert!(sols[0]["family"].is_null());
+    let resp = router(e.st.clone())
+        .oneshot(
+            Request::get("/api/v1/campaigns/two/export/solutions?format=csv")
+                .body(Body::empty())
+                .unwrap(),
+        )
+        .await
+        .unwrap();
+    let text = String::from_utf8(
+        resp.into_body()
+            .collect()
+            .await
+            .unwrap()
+            .to_bytes()
+            .to_vec(),
+    )
+    .unwrap();
+    let lines: Vec<&str> = text.lines().collect();
+    assert!(lines[0].ends_with(",found_at,family"), "{text}");
+    assert!(
+        lines[1].starts_with("two,2,0,1,1,") && lines[1].ends_with(",\"Verebrusov 1908, t = 0\""),
+        "{text}"
+    );
+}
+
+#[tokio::test]
+async fn creation_takes_ranges_skipping_what_cannot_be_a_target_or_refusing_with_strict() {
+    let e = env(plain()).await;
+    let create = |name: &str, ks: Value, strict: bool| json!({"name": name, "ks": ks, "bound": "100", "unit_seconds": 1000, "strict": strict});
+    // 1..20: 4, 5, 13, 14 are ±4 mod 9 (cubes are 0, ±1 mod 9), 1 and 8 are cubes.
+    let (s, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns",
+            Some(TOKEN),
+            create("r", json!("1..20,-10..-3"), false),
+        )
+        .await;
+    assert_eq!(s, StatusCode::OK, "{v}");
+    let ks: Vec<i64> = v["targets"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| t["k"].as_i64().unwrap())
+        .collect();
+    assert_eq!(
+        ks,
+        vec![-10, -9, -7, -6, -3, 2, 3, 6, 7, 9, 10, 11, 12, 15, 16, 17, 18, 19, 20]
+    );
+    let skipped: Vec<i64> = v["skipped"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|s| s["k"].as_i64().unwrap())
+        .collect();
+    assert_eq!(skipped, vec![1, 4, 5, 8, 13, 14, -8, -5, -4]);
+    for s in v["skipped"].as_array().unwrap() {
+        let r = s["reason"].as_str().unwrap();
+        assert!(r.contains("mod 9") || r.contains("cube"), "{r}");
+    }
+    assert!(v["targets"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|t| t["model"]["expected_total"].as_f64().unwrap() > 0.0));
+    // strict: refused, naming the offending k, and nothing is made
+    let (s, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns",
+            Some(TOKEN),
+            create("r2", json!("2..5"), true),
+        )
+        .await;
+    assert_eq!(
+        (s, v["error"].as_str()),
+        (StatusCode::BAD_REQUEST, Some("bad_target")),
+        "{v}"
+    );
+    assert!(v["message"].as_str().unwrap().contains("k = 4, 5"), "{v}");
+    assert_eq!(e.get("/api/v1/campaigns/r2").await.0, StatusCode::NOT_FOUND);
+    // strict with nothing to skip is a plain creation
+    let (s, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns",
+            Some(TOKEN),
+            create("r3", json!("2..3"), true),
+        )
+        .await;
+    assert_eq!(s, StatusCode::OK, "{v}");
+    assert!(v.get("skipped").is_none());
+    // a value named on its own that cannot be a target is refused, range or not
+    for ks in [
+        json!("3,4"),
+        json!([3, 8]),
+        json!("0,2..3"),
+        json!("4..5"),
+        json!("1..1e6"),
+    ] {
+        let (s, v) = e
+            .admin(
+                "POST",
+                "/api/v1/admin/campaigns",
+                Some(TOKEN),
+                create("r4", ks.clone(), false),
+            )
+            .await;
+        assert_eq!(
+            (s, v["error"].as_str()),
+            (StatusCode::BAD_REQUEST, Some("bad_target")),
+            "{ks}: {v}"
+        );
+    }
+    assert_eq!(e.get("/api/v1/campaigns/r4").await.0, StatusCode::NOT_FOUND);
+}
+
+#[tokio::test]
+async fn the_coverage_export_streams_every_target_in_pages() {
+    let e = env(plain()).await;
+    // Every admissible non-cube k in 1..=1500 (more than one page of rows) up to a small bound.
+    let (s, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns",
+            Some(TOKEN),
+            json!({"name": "wide", "ks": "1..1500", "bound": "20", "unit_seconds": 1e6}),
+        )
+        .await;
+    assert_eq!(s, StatusCode::BAD_REQUEST, "more than 1000 targets: {v}");
+    let (s, v) = e
+        .admin(
+            "POST",
+            "/api/v1/admin/campaigns",
+            Some(TOKEN),
+            json!({"name": "wide", "ks": "-400..900", "bound": "20", "unit_seconds": 1e6}),
+        )
+        .await;
+    assert_eq!(s, StatusCode::OK, "{}", v["message"]);
+    let n = v["targets"].as_array().unwrap().len();
+    let ks: Vec<i64> = (-400..=900i64)
+        .filter(|&k| cubehunt_common::kernel::check_target(k).is_ok())
+        .collect();
+    assert_eq!(n, ks.len());
+    assert!(n as i64 > crate::export::PAGE_ROWS, "{n} rows fit one page");
+    for format in ["csv", "json"] {
+        let resp = router(e.st.clone())
+            .oneshot(
+                Request::get(format!(
+                    "/api/v1/campaigns/wide/export/coverage?format={format}"
+                ))
+                .body(Body::empty())
+                .unwrap(),
+            )
+            .await
+            .unwrap();
+        assert_eq!(resp.status(), StatusCode::OK);
+        // Read it frame by frame: a streamed answer arrives in several.
+        let mut body = resp.into_body();
+        let (mut bytes, mut frames) = (Vec::new(), 0);
+        while let Some(f) = body.frame().await {
+            if let Ok(d) = f.unwrap().into_data() {
+                bytes.extend_from_slice(&d);
+                frames += 1;
+            }
+        }
+        assert!(frames >= 3, "{format}: {frames} frames");
+        let text = String::from_utf8(bytes).unwrap();
+        let got: Vec<i64> = if format == "csv" {
+            let mut lines = text.lines();
+            let head = lines.next().unwrap();
+            assert!(
+                head.starts_with("campaign,k,bound,units,units_settled,complete,certified,"),
+                "{head}"
+            );
+            lines
+                .map(|l| {
+                    let f: Vec<&str> = l.split(',').collect();
+                    assert_eq!(f.len(), 11, "{l}");
+                    assert_eq!(
+                        (f[0], f[2], f[5], f[6], f[8], f[9]),
+                        ("wide", "20", "false", "false", "", "0"),
+                        "{l}"
+                    );
+                    f[1].parse().unwrap()
+                })
+                .collect()
+        } else {
+            let rows: Vec<Value> = serde_json::from_str(&text).expect("one well-formed JSON array");
+            assert!(rows.iter().all(|r| r["certified"] == false
+                && r["certificate_root"].is_null()
+                && r["solutions"] == 0));
+            rows.iter().map(|r| r["k"].as_i64().unwrap()).collect()
+        };
+        assert_eq!(got, ks, "{format}: every target once, by k");
+    }
+    // An unknown export or campaign is refused before anything streams.
+    assert_eq!(
+        e.get("/api/v1/campaigns/wide/export/everything").await.0,
+        StatusCode::NOT_FOUND
+    );
+    assert_eq!(
+        e.get("/api/v1/campaigns/nope/export/coverage").await.0,
+        StatusCode::NOT_FOUND
+    );
+}

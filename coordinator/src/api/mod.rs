@@ -49,6 +49,8 @@ pub struct AppState {
     /// Wakes the checker (the coordinator's own computations) when work for it arrives.
     pub checker: Arc<Notify>,
     pub started_at: i64,
+    /// The density model's figures per target, computed once per `(k, bound)`.
+    pub model: Arc<crate::model::ModelCache>,
 }
 
 pub type Shared = Arc<AppState>;
@@ -65,6 +67,7 @@ impl AppState {
             config,
             checker: Arc::new(Notify::new()),
             started_at: crate::now(),
+            model: Arc::new(crate::model::ModelCache::default()),
         })
     }
 }

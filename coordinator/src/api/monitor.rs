@@ -2,6 +2,7 @@
 //! `/healthz` and the status page. No authentication, no state changes.
 
 use super::{ApiResult, AppError, AppState, Shared};
+use crate::model::{self, FamilyMark, ModelInfo, TargetModel};
 use crate::store::{CampaignRow, SolutionView, TargetStats, UnitCounts, WorkerView};
 use axum::extract::{Path, State};
 use axum::http::header;
@@ -35,6 +36,12 @@ pub struct TargetView {
     #[serde(flatten)]
     pub progress: Progress,
     pub solutions: Vec<Solution>,
+    /// The solutions above that belong to a parametric family, with its parameter.
+    #[serde(default)]
+    pub families: Vec<FamilyMark>,
+    /// Found versus expected at the target's bound (the campaign's `model` says how).
+    #[serde(default)]
+    pub model: Option<TargetModel>,
 }
 
 #[derive(Clone, Debug, Serialize, serde::Deserialize)]
@@ -52,6 +59,20 @@ pub struct CampaignView {
     pub targets: Vec<TargetView>,
     /// Every settled solution of every target, triples sorted ascending, by k then triple.
     pub solutions: Vec<Solution>,
+    /// How the targets' `model` figures are counted and what their interval is.
+    #[serde(default = "ModelInfo::current")]
+    pub model: ModelInfo,
+    /// Values of k a range asked for that were skipped, with the reason (only in the answer
+    /// to a creation).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub skipped: Vec<Skipped>,
+}
+
+/// A value of k left out of a campaign, and why.
+#[derive(Clone, Debug, Serialize, serde::Deserialize)]
+pub struct Skipped {
+    pub k: i64,
+    pub reason: String,
 }
 
 fn progress(
@@ -90,6 +111,8 @@ pub async fn campaign_view(st: &AppState, c: &CampaignRow) -> ApiResult<Campaign
     let now = crate::now();
     let window = RATE_WINDOW_S.min(now - c.created_at).max(1);
     let stats = st.store.campaign_stats(c.id, now - window).await?;
+    let rows: Vec<_> = stats.targets.iter().map(|t| t.target.clone()).collect();
+    let figures = st.model.for_targets(&rows).await;
     let mut all = UnitCounts::default();
     let (mut tot, mut set, mut rec) = (0, 0, 0);
     let mut targets = Vec::new();
@@ -112,7 +135,12 @@ pub async fn campaign_view(st: &AppState, c: &CampaignRow) -> ApiResult<Campaign
         set += cost_settled_us;
         rec += cost_settled_recent_us;
         solutions.extend(sols.iter().copied());
+        let model = figures
+            .get(&(target.k, target.bound))
+            .and_then(|f| model::target_model(target.k, target.bound, f, &sols));
         targets.push(TargetView {
+            families: model::family_marks(target.k, &sols),
+            model,
             k: target.k,
             bound: target.bound,
             z0: target.z0,
@@ -141,6 +169,8 @@ pub async fn campaign_view(st: &AppState, c: &CampaignRow) -> ApiResult<Campaign
         progress: progress(all, tot, set, rec, window),
         targets,
         solutions,
+        model: ModelInfo::current(),
+        skipped: Vec::new(),
     })
 }
 
@@ -178,7 +208,11 @@ pub async fn solutions(
     Path(name): Path<String>,
 ) -> ApiResult<Json<Vec<SolutionView>>> {
     let c = find_campaign(&st, &name).await?;
-    Ok(Json(st.store.campaign_solutions(c.id).await?))
+    let mut v = st.store.campaign_solutions(c.id).await?;
+    for s in &mut v {
+        s.family = model::family_text(s.k, &s.solution);
+    }
+    Ok(Json(v))
 }
 
 /// Workers listed by one `GET /api/v1/workers` when no `limit` is given, and at most.

@@ -103,6 +103,14 @@ pub fn spec() -> Value {
         "solutions".into(),
         json!({"type": "array", "items": triple}),
     );
+    tp.insert(
+        "families".into(),
+        json!({"type": "array", "items": r("FamilyMark"), "description": "the solutions above that belong to a parametric family"}),
+    );
+    tp.insert(
+        "model".into(),
+        json!({"oneOf": [r("TargetModel"), {"type": "null"}], "description": "found versus expected at the target's bound (the campaign's model says how they are counted)"}),
+    );
     let mut campaign_props = progress_props.clone();
     let cp = campaign_props.as_object_mut().unwrap();
     cp.insert("name".into(), json!({"type": "string"}));
@@ -122,6 +130,12 @@ pub fn spec() -> Value {
     cp.insert(
         "solutions".into(),
         json!({"type": "array", "items": triple, "description": "all targets, by k then triple"}),
+    );
+    cp.insert("model".into(), r("ModelInfo"));
+    cp.insert(
+        "skipped".into(),
+        json!({"type": "array", "items": {"type": "object", "properties": {"k": {"type": "integer"}, "reason": {"type": "string"}}},
+        "description": "only in the answer to a creation: values of k a range named that cannot be targets (±4 mod 9, cubes, 0), with the reason; absent when none"}),
     );
 
     let admin_sec = json!([{"adminToken": []}]);
@@ -207,16 +221,32 @@ pub fn spec() -> Value {
           "UnitCounts": units,
           "Target": {"type": "object", "properties": target_props},
           "Campaign": {"type": "object", "properties": campaign_props},
-          "SolutionRecord": {"type": "object", "properties": {"k": {"type": "integer"}, "solution": triple, "unit_id": {"type": "integer"}, "found_at": {"type": "integer"}}},
+          "SolutionRecord": {"type": "object", "properties": {"k": {"type": "integer"}, "solution": triple, "unit_id": {"type": "integer"}, "found_at": {"type": "integer"},
+              "family": {"type": ["string", "null"], "description": "the parametric family it belongs to, e.g. \"Verebrusov 1908, t = 1\" (k = ±2m³) or \"Mahler 1936, t = -1\" (k = ±m³); null when none"}}},
+          "FamilyMark": {"type": "object", "properties": {"solution": triple,
+              "family": {"type": "string", "enum": ["mahler", "verebrusov"], "description": "Mahler 1936: (9t⁴, 3t − 9t⁴, 1 − 9t³) for k = 1; Verebrusov 1908: (1 + 6t³, 1 − 6t³, −6t²) for k = 2; both scaled by m for k = ±m³·k₀ and negated for negative k"},
+              "t": {"type": "string", "description": "the family's parameter, decimal"},
+              "description": {"type": "string"}}},
+          "TargetModel": {"type": "object", "description": "the Heath-Brown density model at the target's bound (docs/heuristic.md), computed once per k and bound", "properties": {
+              "singular_series": {"type": "number", "description": "S(k), the Euler product up to the campaign's model.prime_bound"},
+              "expected_total": {"type": "number", "description": "expected solutions with min(|x|,|y|,|z|) <= bound, up to permutation"},
+              "found": {"type": "integer", "description": "stored solutions counted the same way, leaving out parametric and trivial families"},
+              "not_counted": {"type": "integer", "description": "stored solutions left out of found"},
+              "low": {"type": "integer"}, "high": {"type": "integer", "description": "the central 95 % Poisson interval of expected_total (ModelInfo.interval), exact from the Poisson probabilities"},
+              "verdict": {"type": "string", "enum": ["fewer", "as_expected", "more"], "description": "found below low, within [low, high], or above high"},
+              "note": {"type": "string", "description": "what the model does not count for this k (absent when nothing)"}}},
+          "ModelInfo": {"type": "object", "properties": {"counting": {"type": "string"}, "interval": {"type": "string"}, "level": {"type": "number"}, "prime_bound": {"type": "integer"}}},
           "Worker": {"type": "object", "properties": {"id": {"type": "integer"}, "owner": {"type": "string"}, "label": {"type": "string"},
               "kernel": {"type": "string"}, "threads": {"type": "integer"}, "enrolled_at": {"type": "integer"}, "last_seen": {"type": "integer"},
               "reports": {"type": "integer"}, "units_settled": {"type": "integer"}, "errors": {"type": "integer"}, "quarantined": {"type": "boolean"},
               "active_leases": {"type": "integer"}, "rate": {"type": ["number", "null"], "description": "reference-core seconds per second"}}},
           "CreateCampaign": {"type": "object", "required": ["name", "ks", "bound"], "properties": {
               "name": {"type": "string", "pattern": "^[A-Za-z0-9._-]{1,64}$"},
-              "ks": {"oneOf": [{"type": "array", "items": {"type": "integer"}}, {"type": "string", "example": "114,390"}]},
+              "ks": {"oneOf": [{"type": "array", "items": {"type": "integer"}}, {"type": "string", "example": "3,33,100..200"}],
+                  "description": "a list of integers, or a string: K, K,K,…, a range A..B (both ends included, negative values allowed) or a mix, as `plan --k` takes. Values of a range that cannot be targets (±4 mod 9, cubes, 0) are skipped and listed in the answer's skipped; a value named on its own that cannot be a target is refused"},
               "bound": count.clone(),
-              "unit_seconds": {"type": "number", "default": 600}}},
+              "unit_seconds": {"type": "number", "default": 600},
+              "strict": {"type": "boolean", "default": false, "description": "refuse the whole request (400 bad_target, naming the values) instead of skipping values of a range that cannot be targets"}}},
           "ExtendCampaign": {"type": "object", "required": ["bound"], "properties": {"bound": count}},
           "EnrolRequest": {"type": "object", "required": ["owner", "public_key", "kernel", "threads"], "properties": {
               "owner": {"type": "string", "pattern": "^[A-Za-z0-9._-]{1,64}$"}, "public_key": {"type": "string", "description": "64 hex"},

@@ -3,15 +3,20 @@
 //!
 //! * `GET /api/v1/campaigns/{name}/targets/{k}/certificate[?bound=B][&format=text]` — the signed
 //!   certificate (JSON, or its text rendering); 409 while the target is not complete.
-//! * `GET /api/v1/campaigns/{name}/export/{what}[?format=csv|json]` — `solutions` or `ledger`.
+//! * `GET /api/v1/campaigns/{name}/export/{what}[?format=csv|json]` — `solutions`, `ledger`
+//!   or `coverage`, streamed: a task reads the store a page at a time ([`export::Export`])
+//!   and hands each page to the answer's body through a short channel, so a large export is
+//!   never held in memory and a slow reader holds the task back rather than filling memory.
 
 use super::{ApiResult, AppError, Shared};
 use crate::certify::{self, CertError};
-use crate::export::{self, Format, What};
+use crate::export::{Export, Format, What};
+use axum::body::{Body, Bytes, HttpBody};
 use axum::extract::{Path, Query, State};
 use axum::http::header;
 use axum::response::{IntoResponse, Response};
 use cubehunt_common::numarg;
+use hyper::body::Frame;
 use serde::Deserialize;
 use serde_json::{json, Value};
 
@@ -81,18 +86,14 @@ pub async fn export(
     Path((name, what)): Path<(String, String)>,
     Query(q): Query<ExportQuery>,
 ) -> ApiResult<Response> {
-    let what = match what.as_str() {
-        "solutions" => What::Solutions,
-        "ledger" => What::Ledger,
-        other => {
-            return Err(AppError::not_found(
-                "not_found",
-                format!(
-                    "no export named {:?}: use solutions or ledger",
-                    other.chars().take(20).collect::<String>()
-                ),
-            ))
-        }
+    let Some(what) = What::parse(&what) else {
+        return Err(AppError::not_found(
+            "not_found",
+            format!(
+                "no export named {:?}: use solutions, ledger or coverage",
+                what.chars().take(20).collect::<String>()
+            ),
+        ));
     };
     let format = match q.format.as_deref() {
         None | Some("csv") => Format::Csv,
@@ -113,15 +114,59 @@ pub async fn export(
             format!("no campaign named {name:?}"),
         ));
     }
-    let mut buf: Vec<u8> = Vec::new();
-    export::export(&st.store, &name, what, format, &mut buf)
-        .await
-        .map_err(|e| AppError::internal(format!("{e:#}")))?;
+    let (tx, rx) =
+        tokio::sync::mpsc::channel::<Result<Bytes, std::io::Error>>(EXPORT_CHUNKS_IN_FLIGHT);
+    let st2 = st.clone();
+    tokio::spawn(async move {
+        let mut e = match Export::open(&st2.store, &name, what, format).await {
+            Ok(e) => e,
+            Err(err) => {
+                let _ = tx
+                    .send(Err(std::io::Error::other(format!("{err:#}"))))
+                    .await;
+                return;
+            }
+        };
+        loop {
+            let item = match e.next_chunk().await {
+                Ok(Some(chunk)) => Ok(Bytes::from(chunk)),
+                Ok(None) => return,
+                Err(err) => {
+                    tracing::warn!(campaign = %name, error = %format!("{err:#}"), "export stopped");
+                    Err(std::io::Error::other(format!("{err:#}")))
+                }
+            };
+            let failed = item.is_err();
+            // The reader went away: stop reading the store.
+            if tx.send(item).await.is_err() || failed {
+                return;
+            }
+        }
+    });
     let ct = match format {
         Format::Csv => "text/csv; charset=utf-8",
         Format::Json => "application/json",
     };
-    Ok(([(header::CONTENT_TYPE, ct)], buf).into_response())
+    Ok(([(header::CONTENT_TYPE, ct)], Body::new(ChannelBody(rx))).into_response())
+}
+
+/// Pages of an export waiting in the channel between the store and the connection.
+const EXPORT_CHUNKS_IN_FLIGHT: usize = 2;
+
+/// A response body fed by a channel of chunks; an `Err` aborts the answer (the client sees
+/// a broken transfer, not a well-formed partial export).
+struct ChannelBody(tokio::sync::mpsc::Receiver<Result<Bytes, std::io::Error>>);
+
+impl HttpBody for ChannelBody {
+    type Data = Bytes;
+    type Error = std::io::Error;
+
+    fn poll_frame(
+        mut self: std::pin::Pin<&mut Self>,
+        cx: &mut std::task::Context<'_>,
+    ) -> std::task::Poll<Option<Result<Frame<Bytes>, Self::Error>>> {
+        self.0.poll_recv(cx).map(|o| o.map(|r| r.map(Frame::data)))
+    }
 }
 
 /// The OpenAPI paths of this module, merged into the document by [`super::openapi::spec`].
@@ -140,9 +185,9 @@ pub fn openapi_paths() -> Value {
                 "400": err("bad k, bound or format"), "404": err("no such campaign or target"),
                 "409": err("the target is not complete: some needed unit is not settled")}}},
         "/api/v1/campaigns/{name}/export/{what}": {"get": {
-            "summary": "Export solutions, or the per-unit ledger (one line per report: unit, worker, owner, times, digest, verdict)",
+            "summary": "Export solutions (with the parametric family of each, if any), the per-unit ledger (one line per report: unit, worker, owner, times, digest, verdict), or the coverage table (one line per target, those without solutions too: k, bound, units, units_settled, complete, certified, certified_bound, certificate_root, solutions, family_solutions). Streamed a page of rows at a time; CSV has a header line, JSON is one array.",
             "parameters": [name,
-                {"name": "what", "in": "path", "required": true, "schema": {"type": "string", "enum": ["solutions", "ledger"]}},
+                {"name": "what", "in": "path", "required": true, "schema": {"type": "string", "enum": ["solutions", "ledger", "coverage"]}},
                 {"name": "format", "in": "query", "required": false, "schema": {"type": "string", "enum": ["csv", "json"]}}],
             "responses": {
                 "200": {"description": "the export", "content": {"text/csv": {"schema": {"type": "string"}}, "application/json": {"schema": {"type": "array"}}}},

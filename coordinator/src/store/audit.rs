@@ -37,6 +37,21 @@ pub struct LedgerRow {
     pub verdict: String,
 }
 
+/// One line of the coverage table: a target with its counts and current certificate.
+#[derive(Clone, Debug)]
+pub struct CoverageRow {
+    pub target_id: i64,
+    pub k: i64,
+    pub bound: u64,
+    pub units: i64,
+    pub units_settled: i64,
+    pub solutions: i64,
+    /// The largest bound with a current (not revoked) certificate.
+    pub certified_bound: Option<u64>,
+    /// The Merkle root of the current certificate at the target's own bound.
+    pub certificate_root: Option<String>,
+}
+
 impl Store {
     async fn all<T>(&self, sql: &str, f: fn(&sqlx::any::AnyRow) -> Result<T>) -> Result<Vec<T>> {
         let rows = sqlx::query(sql).fetch_all(self.pool()).await?;
@@ -249,5 +264,62 @@ impl Store {
                 })
             })
             .collect()
+    }
+
+    /// Up to `limit` coverage lines of one campaign with k greater than `after_k`, by k.
+    pub async fn coverage_page(
+        &self,
+        campaign_id: i64,
+        after_k: i64,
+        limit: i64,
+    ) -> Result<Vec<CoverageRow>> {
+        let rows = sqlx::query(
+            "SELECT t.id, t.k, t.bound, \
+                    (SELECT count(*) FROM units u WHERE u.target_id = t.id) AS units, \
+                    (SELECT count(*) FROM units u WHERE u.target_id = t.id AND u.state = 'settled') AS settled, \
+                    (SELECT count(*) FROM solutions s WHERE s.target_id = t.id) AS solutions, \
+                    (SELECT max(c.bound) FROM certificates c WHERE c.target_id = t.id AND c.revoked_at IS NULL) AS cert_bound, \
+                    (SELECT max(c.root) FROM certificates c WHERE c.target_id = t.id AND c.bound = t.bound AND c.revoked_at IS NULL) AS cert_root \
+             FROM targets t WHERE t.campaign_id = $1 AND t.k > $2 ORDER BY t.k LIMIT $3",
+        )
+        .bind(campaign_id)
+        .bind(after_k)
+        .bind(limit)
+        .fetch_all(self.pool())
+        .await?;
+        rows.iter()
+            .map(|r| {
+                Ok(CoverageRow {
+                    target_id: r.try_get("id")?,
+                    k: r.try_get("k")?,
+                    bound: r.try_get::<i64, _>("bound")?.max(0) as u64,
+                    units: r.try_get("units")?,
+                    units_settled: r.try_get("settled")?,
+                    solutions: r.try_get("solutions")?,
+                    certified_bound: r
+                        .try_get::<Option<i64>, _>("cert_bound")?
+                        .map(|b| b.max(0) as u64),
+                    certificate_root: r.try_get("cert_root")?,
+                })
+            })
+            .collect()
+    }
+
+    /// Up to `limit` solutions of one target with id greater than `after`, by id.
+    pub async fn solutions_page(
+        &self,
+        target_id: i64,
+        after: i64,
+        limit: i64,
+    ) -> Result<Vec<SolutionRow>> {
+        let rows = sqlx::query(
+            "SELECT * FROM solutions WHERE target_id = $1 AND id > $2 ORDER BY id LIMIT $3",
+        )
+        .bind(target_id)
+        .bind(after)
+        .bind(limit)
+        .fetch_all(self.pool())
+        .await?;
+        rows.iter().map(SolutionRow::from_row).collect()
     }
 }

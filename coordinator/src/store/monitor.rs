@@ -60,6 +60,9 @@ pub struct SolutionView {
     pub solution: Solution,
     pub unit_id: i64,
     pub found_at: i64,
+    /// The parametric family the solution belongs to, if any (filled by the caller; the
+    /// store does not know the families).
+    pub family: Option<String>,
 }
 
 /// Whole-service counters for `/metrics`.
@@ -157,6 +160,7 @@ impl Store {
                 solution: s.solution,
                 unit_id: s.unit_id,
                 found_at: s.found_at,
+                family: None,
             });
         }
         v.sort_by(|a, b| a.k.cmp(&b.k).then(a.solution.cmp(&b.solution)));
